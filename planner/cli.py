@@ -1,0 +1,165 @@
+"""The ``axisledger`` command line (DESIGN.md, "Command line contract").
+
+Exit codes: 0 done; 1 ``verify`` found a mismatch; 2 usage or input error (one ``error:``
+line on stderr, nothing written); 3 internal bug (a short message and where the traceback
+was saved). The command line parses and prints; it computes no statistics.
+"""
+from __future__ import annotations
+
+import argparse
+import os
+import sys
+import tempfile
+import traceback
+from datetime import datetime, timezone
+from pathlib import Path
+
+from . import __version__
+from .errors import InputError, VerificationFailed
+
+DEFAULT_OUT = "axisledger-out"
+
+
+class _Parser(argparse.ArgumentParser):
+    """argparse that reports usage errors as InputError (exit 2, one line)."""
+
+    def error(self, message):  # noqa: D401 - argparse API
+        raise InputError(f"{message} (axisledger {self.prog.split()[-1]})", f"see: {self.prog} --help")
+
+
+def _components(value: str):
+    if value == "auto":
+        return "auto"
+    try:
+        number = int(value)
+    except ValueError:
+        raise argparse.ArgumentTypeError(f"--components takes 'auto' or a whole number, not {value!r}")
+    if number < 1:
+        raise argparse.ArgumentTypeError(f"--components must be at least 1, not {number}")
+    return number
+
+
+def _seed(value: str) -> int:
+    try:
+        number = int(value)
+    except ValueError:
+        raise argparse.ArgumentTypeError(f"--seed takes a whole number, not {value!r}")
+    if number < 0:
+        raise argparse.ArgumentTypeError(f"--seed must be >= 0, not {number}")
+    return number
+
+
+def _add_audit_options(p: argparse.ArgumentParser) -> None:
+    p.add_argument("--out", default=None, help=f"folder for record.json and record.pdf (default ./{DEFAULT_OUT})")
+    p.add_argument("--force", action="store_true", help="replace a record already in the --out folder")
+    p.add_argument("--title", default=None, help="title of the record")
+    p.add_argument("--analyst", default=None, help="name of the person running the audit")
+    p.add_argument("--columns", default=None, help="comma-separated feature columns to use (default: all numeric)")
+    p.add_argument("--exclude", default=None, help="comma-separated columns to leave out")
+    p.add_argument("--id-column", default=None, help="column that names the rows")
+    p.add_argument("--target", default=None, help="outcome column for the target check; never reduced")
+    p.add_argument("--scaling", default="auto", choices=["auto", "standardize", "center", "robust", "pareto"])
+    p.add_argument("--components", default="auto", type=_components, help="'auto' or a number N (needs --because)")
+    p.add_argument("--because", default=None, help="reason for overriding the recommended number of components")
+    p.add_argument("--missing", default="listwise", choices=["listwise", "mean", "fail"])
+    p.add_argument("--rules", default=None, help="a rulebook TOML file replacing the default one")
+    p.add_argument("--seed", default=0, type=_seed, help="seed for every random step (default 0)")
+    p.add_argument("--sheet", default=None, help="sheet of an .xlsx workbook (default: the first)")
+    p.add_argument("--no-pdf", action="store_true", help="write record.json only")
+
+
+def build_parser() -> argparse.ArgumentParser:
+    parser = _Parser(prog="axisledger", description="Check a table before a PCA reduction, decide it with evidence, and record the decision.")
+    parser.add_argument("--version", action="version", version=f"axisledger {__version__}")
+    sub = parser.add_subparsers(dest="command", parser_class=_Parser, metavar="COMMAND")
+    sub.required = True
+
+    demo = sub.add_parser("demo", help="run the full audit on the invented kiln-line data")
+    demo.add_argument("--out", default=DEFAULT_OUT, help=f"output folder (default ./{DEFAULT_OUT})")
+    demo.add_argument("--no-pdf", action="store_true", help="write record.json only")
+
+    audit = sub.add_parser("audit", help="audit a CSV, Parquet or .xlsx file")
+    audit.add_argument("data", help="the data file")
+    _add_audit_options(audit)
+    return parser
+
+
+def _command_line(argv: list[str]) -> list[str]:
+    return ["axisledger", *argv]
+
+
+def cmd_audit(args, argv: list[str]) -> int:
+    from .pipeline import AuditOptions, run_audit
+    from .output import check_out_dir, write_audit
+    from .render.summary import render_summary
+
+    out_dir = Path(args.out or DEFAULT_OUT)
+    check_out_dir(out_dir, args.force)
+    options = AuditOptions(
+        title=args.title if args.title is not None else f"PCA decision record for {Path(args.data).name}",
+        analyst=args.analyst,
+        columns=args.columns,
+        exclude=args.exclude,
+        id_column=args.id_column,
+        target=args.target,
+        scaling=args.scaling,
+        components=args.components,
+        because=args.because,
+        missing=args.missing,
+        rules=args.rules,
+        seed=args.seed,
+        sheet=args.sheet,
+        command_line=_command_line(argv),
+    )
+    result = run_audit(args.data, options)
+    paths = write_audit(result.record, out_dir, pdf=not args.no_pdf, force=args.force)
+    print(render_summary(result.record, paths))
+    return 0
+
+
+def cmd_demo(args, argv: list[str]) -> int:
+    from .demo import run_demo
+
+    paths, record = run_demo(Path(args.out), pdf=not args.no_pdf, command_line=_command_line(argv))
+    from .render.summary import render_summary
+
+    print(render_summary(record, paths))
+    return 0
+
+
+COMMANDS = {"audit": cmd_audit, "demo": cmd_demo}
+
+
+def _save_traceback() -> str:
+    stamp = datetime.now(timezone.utc).strftime("%Y%m%dT%H%M%SZ")
+    fd, path = tempfile.mkstemp(prefix=f"axisledger-crash-{stamp}-", suffix=".txt")
+    with os.fdopen(fd, "w", encoding="utf-8") as handle:
+        handle.write(f"axisledger {__version__} internal error\nargv: {sys.argv!r}\n\n")
+        handle.write(traceback.format_exc())
+    return path
+
+
+def main(argv: list[str] | None = None) -> int:
+    argv = list(sys.argv[1:] if argv is None else argv)
+    try:
+        args = build_parser().parse_args(argv)
+        return COMMANDS[args.command](args, argv)
+    except InputError as exc:
+        print(f"error: {exc}", file=sys.stderr)
+        return 2
+    except VerificationFailed as exc:
+        print(f"verify: {exc}", file=sys.stderr)
+        return 1
+    except SystemExit as exc:  # --help and --version
+        return int(exc.code or 0) if isinstance(exc.code, int) else 0
+    except KeyboardInterrupt:
+        print("error: interrupted; no file was changed", file=sys.stderr)
+        return 2
+    except BaseException:  # noqa: BLE001 - the contract: exit 3 with the traceback saved
+        path = _save_traceback()
+        print(f"internal error: this is a bug in axisledger; the traceback was saved to {path}", file=sys.stderr)
+        return 3
+
+
+if __name__ == "__main__":
+    raise SystemExit(main())

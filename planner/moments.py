@@ -1,0 +1,227 @@
+"""Sufficient statistics of a numeric table, computed in one pass and mergeable.
+
+Every matrix-level figure of the analysis (correlation, VIF, Bartlett, KMO, eigenvalues,
+retention rules, variance discarded) is a function of a :class:`Moments` object alone, so
+that the same analysis runs on a table in memory, on chunks streamed from disk, or on
+partitions computed elsewhere and merged.
+
+The merge uses the pairwise formulas of Chan, Golub and LeVeque for the mean and the
+co-moment matrix, extended to the third and fourth central moments as in Pebay.
+
+References
+----------
+T. F. Chan, G. H. Golub and R. J. LeVeque (1979), "Updating formulae and a pairwise
+algorithm for computing sample variances", Stanford CS report STAN-CS-79-773.
+P. Pebay (2008), "Formulas for robust, one-pass parallel computation of covariances and
+arbitrary-order statistical moments", Sandia report SAND2008-6212.
+"""
+from __future__ import annotations
+
+from dataclasses import dataclass, field
+
+import numpy as np
+
+
+@dataclass
+class Moments:
+    """One-pass, mergeable moments of ``p`` numeric columns.
+
+    Attributes
+    ----------
+    columns : list of str
+        Column names, in file order.
+    n : int
+        Number of complete rows accumulated (rows with a missing value in any column are
+        counted in ``rows_seen`` and ``missing`` but do not enter the moments).
+    mean : ndarray (p,)
+    comoment : ndarray (p, p)
+        Sum over rows of ``(x - mean)(x - mean)^T``; the covariance is
+        ``comoment / (n - 1)``.
+    m3, m4 : ndarray (p,)
+        Sums of third and fourth powers of deviations from the mean, per column.
+    minimum, maximum : ndarray (p,)
+    zeros : ndarray (p,) of int
+        Number of exact zeros per column (among complete rows).
+    missing : ndarray (p,) of int
+        Number of missing values per column among all rows seen.
+    rows_seen : int
+        All rows offered to :meth:`update`, complete or not.
+    """
+
+    columns: list[str]
+    n: int = 0
+    mean: np.ndarray = field(default=None)  # type: ignore[assignment]
+    comoment: np.ndarray = field(default=None)  # type: ignore[assignment]
+    m3: np.ndarray = field(default=None)  # type: ignore[assignment]
+    m4: np.ndarray = field(default=None)  # type: ignore[assignment]
+    minimum: np.ndarray = field(default=None)  # type: ignore[assignment]
+    maximum: np.ndarray = field(default=None)  # type: ignore[assignment]
+    zeros: np.ndarray = field(default=None)  # type: ignore[assignment]
+    missing: np.ndarray = field(default=None)  # type: ignore[assignment]
+    rows_seen: int = 0
+
+    def __post_init__(self) -> None:
+        self.columns = list(self.columns)
+        p = len(self.columns)
+        if self.mean is None:
+            self.mean = np.zeros(p)
+            self.comoment = np.zeros((p, p))
+            self.m3 = np.zeros(p)
+            self.m4 = np.zeros(p)
+            self.minimum = np.full(p, np.inf)
+            self.maximum = np.full(p, -np.inf)
+            self.zeros = np.zeros(p, dtype=np.int64)
+            self.missing = np.zeros(p, dtype=np.int64)
+
+    @property
+    def p(self) -> int:
+        return len(self.columns)
+
+    # ------------------------------------------------------------------ building
+    @classmethod
+    def from_array(cls, x: np.ndarray, columns: list[str]) -> "Moments":
+        """Moments of a whole array in one step (the chunk formula on one chunk)."""
+        moments = cls(columns)
+        moments.update(x)
+        return moments
+
+    def update(self, chunk: np.ndarray) -> "Moments":
+        """Add the rows of ``chunk`` (shape ``(m, p)``, NaN for missing) and return self.
+
+        The chunk's own moments are computed with two passes over the chunk (its mean,
+        then the centred cross-product ``D^T D`` through BLAS), then merged in.
+        """
+        chunk = np.asarray(chunk, dtype=np.float64)
+        if chunk.ndim != 2 or chunk.shape[1] != self.p:
+            raise ValueError(f"chunk must have shape (m, {self.p}), got {chunk.shape}")
+        nan = np.isnan(chunk)
+        self.missing = self.missing + nan.sum(axis=0)
+        self.rows_seen += chunk.shape[0]
+        complete = chunk[~nan.any(axis=1)] if nan.any() else chunk
+        if complete.shape[0] == 0:
+            return self
+        other = Moments._of_complete_rows(complete, self.columns)
+        self._merge_in(other)
+        return self
+
+    @staticmethod
+    def _of_complete_rows(x: np.ndarray, columns: list[str]) -> "Moments":
+        m = x.shape[0]
+        mean = x.mean(axis=0)
+        d = x - mean
+        # A second correction pass keeps the mean exact to rounding for data far from 0.
+        correction = d.mean(axis=0)
+        mean = mean + correction
+        d = d - correction
+        d2 = d * d
+        return Moments(
+            columns=columns,
+            n=m,
+            mean=mean,
+            comoment=d.T @ d,
+            m3=(d2 * d).sum(axis=0),
+            m4=(d2 * d2).sum(axis=0),
+            minimum=x.min(axis=0),
+            maximum=x.max(axis=0),
+            zeros=(x == 0).sum(axis=0).astype(np.int64),
+            missing=np.zeros(len(columns), dtype=np.int64),
+            rows_seen=0,
+        )
+
+    def merge(self, other: "Moments") -> "Moments":
+        """Return the moments of the union of the rows of ``self`` and ``other``.
+
+        Neither operand is changed. The columns must be the same, in the same order.
+        """
+        if list(other.columns) != self.columns:
+            raise ValueError("cannot merge moments of different columns")
+        result = self.copy()
+        result._merge_in(other)
+        result.missing = self.missing + other.missing
+        result.rows_seen = self.rows_seen + other.rows_seen
+        return result
+
+    def _merge_in(self, b: "Moments") -> None:
+        """Chan-Golub-LeVeque pairwise update of self (a) with b, in place.
+
+        Missing counts and ``rows_seen`` are the caller's business.
+        """
+        na, nb = self.n, b.n
+        if nb == 0:
+            return
+        if na == 0:
+            self.n, self.mean, self.comoment = nb, b.mean.copy(), b.comoment.copy()
+            self.m3, self.m4 = b.m3.copy(), b.m4.copy()
+            self.minimum = np.minimum(self.minimum, b.minimum)
+            self.maximum = np.maximum(self.maximum, b.maximum)
+            self.zeros = self.zeros + b.zeros
+            return
+        n = na + nb
+        delta = b.mean - self.mean
+        m2a, m2b = np.diag(self.comoment), np.diag(b.comoment)
+        self.m4 = (
+            self.m4
+            + b.m4
+            + delta**4 * na * nb * (na * na - na * nb + nb * nb) / n**3
+            + 6.0 * delta**2 * (na * na * m2b + nb * nb * m2a) / n**2
+            + 4.0 * delta * (na * b.m3 - nb * self.m3) / n
+        )
+        self.m3 = (
+            self.m3
+            + b.m3
+            + delta**3 * na * nb * (na - nb) / n**2
+            + 3.0 * delta * (na * m2b - nb * m2a) / n
+        )
+        self.comoment = self.comoment + b.comoment + np.outer(delta, delta) * (na * nb / n)
+        self.mean = self.mean + delta * (nb / n)
+        self.n = n
+        self.minimum = np.minimum(self.minimum, b.minimum)
+        self.maximum = np.maximum(self.maximum, b.maximum)
+        self.zeros = self.zeros + b.zeros
+
+    def copy(self) -> "Moments":
+        return Moments(
+            columns=list(self.columns),
+            n=self.n,
+            mean=self.mean.copy(),
+            comoment=self.comoment.copy(),
+            m3=self.m3.copy(),
+            m4=self.m4.copy(),
+            minimum=self.minimum.copy(),
+            maximum=self.maximum.copy(),
+            zeros=self.zeros.copy(),
+            missing=self.missing.copy(),
+            rows_seen=self.rows_seen,
+        )
+
+    # ------------------------------------------------------------------ figures
+    def covariance(self) -> np.ndarray:
+        """Sample covariance matrix, divisor ``n - 1``."""
+        if self.n < 2:
+            raise ValueError("the covariance needs at least two complete rows")
+        return self.comoment / (self.n - 1)
+
+    def std(self) -> np.ndarray:
+        """Sample standard deviation per column, divisor ``n - 1``."""
+        return np.sqrt(np.clip(np.diag(self.covariance()), 0.0, None))
+
+    def correlation(self) -> np.ndarray:
+        """Pearson correlation matrix. Columns with zero variance give NaN rows."""
+        diag = np.diag(self.comoment)
+        with np.errstate(divide="ignore", invalid="ignore"):
+            inv = 1.0 / np.sqrt(diag)
+            r = self.comoment * np.outer(inv, inv)
+        np.fill_diagonal(r, np.where(diag > 0, 1.0, np.nan))
+        return r
+
+    def skewness(self) -> np.ndarray:
+        """Sample skewness g1 = m3 / m2^(3/2) with population moments (biased form)."""
+        with np.errstate(divide="ignore", invalid="ignore"):
+            m2 = np.diag(self.comoment) / self.n
+            return (self.m3 / self.n) / m2**1.5
+
+    def excess_kurtosis(self) -> np.ndarray:
+        """Sample excess kurtosis g2 = m4 / m2^2 - 3 with population moments."""
+        with np.errstate(divide="ignore", invalid="ignore"):
+            m2 = np.diag(self.comoment) / self.n
+            return (self.m4 / self.n) / m2**2 - 3.0

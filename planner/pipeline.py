@@ -1,0 +1,159 @@
+"""The audit flow of DESIGN.md: intake -> Moments -> analysis -> Record.
+
+:func:`run_audit` is the one place where the steps are put together; the command line and
+the Python API both call it. It computes; it writes nothing (see :mod:`planner.output`).
+"""
+from __future__ import annotations
+
+import platform
+from dataclasses import dataclass, field
+from importlib import metadata
+
+import numpy as np
+
+from . import __version__, intake as intake_mod
+from .analysis.profile import column_profiles
+from .errors import InputError
+from .moments import Moments
+from .record import SCHEMA_VERSION, jsonable, new_record_id, seal, utc_now
+
+SCALINGS = ("auto", "standardize", "center", "robust", "pareto")
+
+
+@dataclass
+class AuditOptions:
+    """Everything a user can choose for an audit (the options of ``axisledger audit``)."""
+
+    title: str = "PCA decision record"
+    analyst: str | None = None
+    columns: list[str] | str | None = None
+    exclude: list[str] | str | None = None
+    id_column: str | None = None
+    target: str | None = None
+    scaling: str = "auto"
+    components: int | str = "auto"
+    because: str | None = None
+    missing: str = "listwise"
+    rules: str | None = None
+    seed: int = 0
+    sheet: str | None = None
+    command_line: list[str] = field(default_factory=list)
+
+    def validate(self) -> None:
+        if self.scaling not in SCALINGS:
+            raise InputError(f"unknown scaling {self.scaling!r}", f"use one of: {', '.join(SCALINGS)}")
+        if self.components != "auto":
+            if isinstance(self.components, bool) or not isinstance(self.components, (int, np.integer)):
+                raise InputError(f"--components must be 'auto' or a whole number, got {self.components!r}", "for example --components 3")
+            if self.components < 1:
+                raise InputError(f"--components must be at least 1, got {self.components}", "give a positive number of components")
+            if not (self.because and self.because.strip()):
+                raise InputError("--components N overrides the recommendation and needs --because TEXT", "say why, e.g. --because 'fixed by the model spec'")
+        elif self.because is not None and self.components == "auto":
+            raise InputError("--because only goes with --components N", "drop --because or give --components N")
+        if isinstance(self.seed, bool) or not isinstance(self.seed, (int, np.integer)) or self.seed < 0:
+            raise InputError(f"--seed must be a whole number >= 0, got {self.seed!r}", "for example --seed 7")
+        if self.title is not None and not str(self.title).strip():
+            raise InputError("--title is empty", "give a title, e.g. --title 'Kiln line review'")
+
+
+def software_versions() -> dict:
+    """Versions of Python and of the libraries whose arithmetic the record depends on."""
+    versions = {"python": platform.python_version(), "axisledger": __version__}
+    for package in ("numpy", "scipy", "pandas", "statsmodels", "jinja2", "weasyprint", "matplotlib", "pyarrow"):
+        try:
+            versions[package] = metadata.version(package)
+        except metadata.PackageNotFoundError:
+            versions[package] = None
+    return versions
+
+
+@dataclass
+class AuditResult:
+    """What an audit produced: the record (a plain dict) and what was read."""
+
+    record: dict
+    intake: intake_mod.IntakeResult
+    moments: Moments
+
+    def summary(self) -> str:
+        from .render.summary import render_summary
+
+        return render_summary(self.record)
+
+    def to_pdf(self, path) -> None:
+        from .output import write_pdf
+
+        write_pdf(self.record, path)
+
+    def _repr_html_(self) -> str:
+        from .render.html import render_html
+
+        return render_html(self.record, fragment=True)
+
+
+def compute_moments(data: np.ndarray, columns: list[str], missing_per_column: dict[str, int]) -> Moments:
+    """Moments of the rows used; the missing counts are those of the input, before the policy."""
+    moments = Moments.from_array(data, columns)
+    moments.missing = np.array([missing_per_column.get(c, 0) for c in columns], dtype=np.int64)
+    return moments
+
+
+def build_record(intake: intake_mod.IntakeResult, moments: Moments, options: AuditOptions) -> dict:
+    """Assemble the record from the intake and the analysis results."""
+    created = utc_now()
+    record = {
+        "schema_version": SCHEMA_VERSION,
+        "record_id": new_record_id(),
+        "status": "draft",
+        "title": str(options.title),
+        "analyst": options.analyst,
+        "created_at": created,
+        "tool": {"name": "axisledger", "version": __version__},
+        "input": intake.input_section(),
+        "screening": {"columns": [jsonable(p) for p in column_profiles(moments)]},
+        "options": {
+            "scaling": options.scaling,
+            "components": options.components,
+            "missing": options.missing,
+            "seed": int(options.seed),
+            "columns": intake_mod.split_names(options.columns),
+            "exclude": intake_mod.split_names(options.exclude),
+            "id_column": options.id_column,
+            "target": options.target,
+        },
+        "reproducibility": {
+            "command_line": list(options.command_line),
+            "seed": int(options.seed),
+            "software": software_versions(),
+            "platform": f"{platform.system()} {platform.machine()}",
+        },
+        "audit_trail": [{"event": "created", "at": created, "by": options.analyst, "detail": "record created by audit"}],
+        "findings": [],
+        "signoffs": [],
+    }
+    return seal(jsonable(record))
+
+
+def run_audit(source, options: AuditOptions | None = None) -> AuditResult:
+    """Run the whole audit of ``source`` (a path or a pandas DataFrame)."""
+    options = options or AuditOptions()
+    options.validate()
+    result = intake_mod.load(
+        source,
+        columns=options.columns,
+        exclude=options.exclude,
+        id_column=options.id_column,
+        target=options.target,
+        missing=options.missing,
+        sheet=options.sheet,
+    )
+    if options.components != "auto" and options.components > len(result.columns_used):
+        raise InputError(
+            f"--components {options.components} is more than the {len(result.columns_used)} features used",
+            f"give a number from 1 to {len(result.columns_used)}",
+        )
+    moments = compute_moments(result.data, result.columns_used, result.missing_per_column)
+    record = build_record(result, moments, options)
+    return AuditResult(record=record, intake=result, moments=moments)
+

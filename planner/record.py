@@ -1,0 +1,130 @@
+"""The Record: the versioned, strict-JSON decision record and its integrity hash.
+
+The Record is a plain dict of JSON values, the single source of truth for every renderer,
+for sign-off and for verification (DESIGN.md, "Record contract"):
+
+* strict JSON: no NaN or Infinity tokens, a non-finite number is ``null``;
+* canonical form: ``json.dumps(sort_keys=True, separators=(",", ":"), ensure_ascii=False)``
+  encoded as UTF-8;
+* ``integrity.content_sha256``: SHA-256 of the canonical record without ``signoffs``,
+  ``status`` and ``integrity``, so that signing never changes the content hash.
+"""
+from __future__ import annotations
+
+import dataclasses
+import hashlib
+import json
+import math
+import secrets
+from datetime import datetime, timezone
+from pathlib import Path
+
+import numpy as np
+
+from .errors import InputError
+
+SCHEMA_VERSION = 1
+#: Keys left out of the content hash: the events after creation and the seal itself.
+UNHASHED_KEYS = ("signoffs", "status", "integrity")
+
+
+def utc_now() -> str:
+    """Current UTC time as an ISO 8601 string with a ``Z`` suffix, to the second."""
+    return datetime.now(timezone.utc).replace(microsecond=0).isoformat().replace("+00:00", "Z")
+
+
+def new_record_id(now: datetime | None = None) -> str:
+    """A fresh record id: ``AXL-YYYYMMDD-`` and 8 random hex digits."""
+    now = now or datetime.now(timezone.utc)
+    return f"AXL-{now:%Y%m%d}-{secrets.token_hex(4)}"
+
+
+def jsonable(value):
+    """Convert numpy and dataclass values to plain JSON values; non-finite floats to None."""
+    if dataclasses.is_dataclass(value) and not isinstance(value, type):
+        return jsonable(dataclasses.asdict(value))
+    if isinstance(value, dict):
+        return {str(k): jsonable(v) for k, v in value.items()}
+    if isinstance(value, (list, tuple)):
+        return [jsonable(v) for v in value]
+    if isinstance(value, np.ndarray):
+        return [jsonable(v) for v in value.tolist()]
+    if isinstance(value, (bool, np.bool_)):
+        return bool(value)
+    if isinstance(value, (int, np.integer)):
+        return int(value)
+    if isinstance(value, (float, np.floating)):
+        value = float(value)
+        return value if math.isfinite(value) else None
+    if value is None or isinstance(value, str):
+        return value
+    raise TypeError(f"not JSON-serialisable: {type(value).__name__}")
+
+
+def canonical_bytes(obj) -> bytes:
+    """The canonical form of DESIGN.md, as UTF-8 bytes."""
+    return json.dumps(
+        obj, sort_keys=True, separators=(",", ":"), ensure_ascii=False, allow_nan=False
+    ).encode("utf-8")
+
+
+def sha256_hex(data: bytes) -> str:
+    return hashlib.sha256(data).hexdigest()
+
+
+def hashed_body(record: dict) -> dict:
+    """The part of the record that the content hash covers."""
+    return {k: v for k, v in record.items() if k not in UNHASHED_KEYS}
+
+
+def content_sha256(record: dict) -> str:
+    """SHA-256 hex of the canonical record without signoffs, status and integrity."""
+    return sha256_hex(canonical_bytes(hashed_body(record)))
+
+
+def seal(record: dict) -> dict:
+    """Set ``integrity.content_sha256`` from the current content; return the record."""
+    record["integrity"] = {
+        "content_sha256": content_sha256(record),
+        "algorithm": "sha256",
+        "canonical_form": "json.dumps(sort_keys=True, separators=(',', ':'), ensure_ascii=False), UTF-8",
+        "excludes": list(UNHASHED_KEYS),
+    }
+    return record
+
+
+def dumps(record: dict) -> str:
+    """Pretty strict JSON for the file on disk (the hash uses the canonical form)."""
+    return json.dumps(record, indent=2, ensure_ascii=False, allow_nan=False) + "\n"
+
+
+def _refuse_constant(token: str):
+    raise ValueError(f"non-standard JSON token {token}")
+
+
+def loads(text: str, name: str = "record") -> dict:
+    """Parse a record strictly (data only: no NaN/Infinity tokens, an object at the top)."""
+    try:
+        record = json.loads(text, parse_constant=_refuse_constant)
+    except (json.JSONDecodeError, ValueError) as exc:
+        raise InputError(f"{name} is not a valid JSON record ({exc})", "give a record.json written by axisledger")
+    if not isinstance(record, dict):
+        raise InputError(f"{name} is not a record (the top level is not an object)", "give a record.json written by axisledger")
+    version = record.get("schema_version")
+    if version != SCHEMA_VERSION:
+        raise InputError(
+            f"{name} has schema_version {version!r}, this axisledger reads version {SCHEMA_VERSION}",
+            "use the axisledger version that wrote it",
+        )
+    return record
+
+
+def load(path: str | Path) -> dict:
+    path = Path(path)
+    if not path.is_file():
+        raise InputError(f"no such record: {path}", "check the path")
+    try:
+        text = path.read_bytes().decode("utf-8")
+    except UnicodeDecodeError:
+        raise InputError(f"{path.name} is not UTF-8 JSON", "give a record.json written by axisledger")
+    return loads(text, path.name)

@@ -1,0 +1,1 @@
+"""Renderers: they read a Record (a plain dict) and never compute statistics."""

@@ -1,0 +1,41 @@
+"""Number and text formatting shared by the renderers (presentation only)."""
+from __future__ import annotations
+
+import math
+
+
+def num(value, digits: int = 4) -> str:
+    """A number for a table: ``digits`` significant digits, thousands kept readable."""
+    if value is None:
+        return "n/a"
+    if isinstance(value, bool):
+        return str(value)
+    if isinstance(value, int):
+        return f"{value:,}"
+    if not math.isfinite(value):
+        return "n/a"
+    if value == 0:
+        return "0"
+    magnitude = abs(value)
+    if magnitude >= 1e6 or magnitude < 1e-3:
+        return f"{value:.{digits - 1}e}"
+    decimals = max(0, digits - 1 - int(math.floor(math.log10(magnitude))))
+    return f"{value:,.{decimals}f}"
+
+
+def pct(value, digits: int = 1) -> str:
+    if value is None:
+        return "n/a"
+    return f"{100.0 * value:.{digits}f}%"
+
+
+def delimiter(value: str) -> str:
+    return {",": "comma", ";": "semicolon", "\t": "tab", "|": "pipe"}.get(value, repr(value))
+
+
+class Formatters:
+    """The formatting helpers as one object the templates receive as ``fmt``."""
+
+    num = staticmethod(num)
+    pct = staticmethod(pct)
+    delimiter = staticmethod(delimiter)
