@@ -81,6 +81,9 @@ def build_parser() -> argparse.ArgumentParser:
     audit = sub.add_parser("audit", help="audit a CSV, Parquet or .xlsx file")
     audit.add_argument("data", help="the data file")
     _add_audit_options(audit)
+
+    rules = sub.add_parser("rules", help="print the rulebook in force, with sources")
+    rules.add_argument("--rules", default=None, help="a rulebook TOML file (default: the built-in one)")
     return parser
 
 
@@ -127,7 +130,14 @@ def cmd_demo(args, argv: list[str]) -> int:
     return 0
 
 
-COMMANDS = {"audit": cmd_audit, "demo": cmd_demo}
+def cmd_rules(args, argv: list[str]) -> int:
+    from .rulebook import format_rulebook, load_rulebook
+
+    print(format_rulebook(load_rulebook(args.rules)))
+    return 0
+
+
+COMMANDS = {"audit": cmd_audit, "demo": cmd_demo, "rules": cmd_rules}
 
 
 def _save_traceback() -> str:
@@ -152,6 +162,10 @@ def main(argv: list[str] | None = None) -> int:
         return 1
     except SystemExit as exc:  # --help and --version
         return int(exc.code or 0) if isinstance(exc.code, int) else 0
+    except BrokenPipeError:  # the reader of our output went away (e.g. | head)
+        devnull = os.open(os.devnull, os.O_WRONLY)
+        os.dup2(devnull, sys.stdout.fileno())
+        return 0
     except KeyboardInterrupt:
         print("error: interrupted; no file was changed", file=sys.stderr)
         return 2

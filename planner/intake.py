@@ -31,7 +31,9 @@ MIN_ROWS = 3
 #: Distinct integers count as an identifier by their order alone from this many rows on.
 ID_MIN_ROWS = 10
 #: Column names that suggest an identifier when the values are distinct integers.
-_ID_NAME = re.compile(r"(^|[_\W])(id|key|code|no|nr|number|serial|index)($|[_\W])|id$", re.I)
+_ID_NAME = re.compile(r"(^|[_\W])(id|key|code|no|nr|number|serial|index)($|[_\W])|(?-i:[a-z]Id$)", re.I)
+#: Column names of time counters, which stay features even when distinct and in order.
+_TIME_NAME = re.compile(r"year|yr|date|time|month|week|day|period|quarter", re.I)
 _DECIMAL_COMMA = re.compile(r"^[+-]?\d+,\d+$")
 _DECIMAL_POINT = re.compile(r"^[+-]?\d*\.\d+$")
 _THOUSANDS_COMMA = re.compile(r"^[+-]?\d{1,3}(,\d{3})+(\.\d+)?$")
@@ -95,7 +97,7 @@ class IntakeResult:
     values_imputed: int
     binary_columns: list[str]
     text_format: TextFormat | None = None
-    notes: list[str] = field(default_factory=list)
+    notes: list[dict] = field(default_factory=list)
     sheet: str | None = None
 
     def input_section(self) -> dict:
@@ -117,7 +119,7 @@ class IntakeResult:
                 "values_imputed": self.values_imputed,
             },
             "binary_columns": list(self.binary_columns),
-            "notes": list(self.notes),
+            "notes": [n["message"] for n in self.notes],
         }
         if self.text_format is not None:
             section["text_format"] = {
@@ -128,6 +130,11 @@ class IntakeResult:
         if self.sheet is not None:
             section["sheet"] = self.sheet
         return section
+
+
+def note(code: str, severity: str, message: str, subject: str | None = None) -> dict:
+    """An intake observation; it becomes a finding of the record (rule id ``intake.CODE``)."""
+    return {"id": code, "severity": severity, "message": message, "subject": subject}
 
 
 # ---------------------------------------------------------------------------- reading
@@ -150,12 +157,12 @@ def sniff_kind(head: bytes) -> str:
     return "text"
 
 
-def decode_text(raw: bytes, name: str) -> tuple[str, str, list[str]]:
+def decode_text(raw: bytes, name: str) -> tuple[str, str, list[dict]]:
     """Decode a text file: UTF-8 (with or without BOM), UTF-16 with BOM, else Latin-1.
 
     Returns the text, the encoding used and notes. Binary content is refused.
     """
-    notes: list[str] = []
+    notes: list[dict] = []
     if raw.startswith(b"\xef\xbb\xbf"):
         return raw[3:].decode("utf-8", errors="strict"), "utf-8-sig", notes
     if raw.startswith((b"\xff\xfe", b"\xfe\xff")):
@@ -179,7 +186,7 @@ def decode_text(raw: bytes, name: str) -> tuple[str, str, list[str]]:
             f"{name} holds binary content, not a table",
             "give a CSV, TSV, Parquet or .xlsx file",
         )
-    notes.append(f"{name} is not valid UTF-8; it was read as Latin-1 (ISO-8859-1)")
+    notes.append(note("latin1_fallback", "note", f"{name} is not valid UTF-8; it was read as Latin-1 (ISO-8859-1)"))
     return text, "latin-1", notes
 
 
@@ -216,7 +223,7 @@ def detect_decimal(cells: list[str], delimiter: str) -> str:
     return "," if commas + thousands_point > points else "."
 
 
-def read_text_table(raw: bytes, name: str) -> tuple[list[str], pd.DataFrame, TextFormat, list[str]]:
+def read_text_table(raw: bytes, name: str) -> tuple[list[str], pd.DataFrame, TextFormat, list[dict]]:
     """Parse a delimited text file into a header and a frame of strings."""
     text, encoding, notes = decode_text(raw, name)
     if not text.strip():
@@ -248,7 +255,7 @@ def read_text_table(raw: bytes, name: str) -> tuple[list[str], pd.DataFrame, Tex
     ]
     decimal = detect_decimal(sample_cells, delimiter)
     if decimal == ",":
-        notes.append(f"{name} uses a decimal comma; values such as '3,14' were read as 3.14")
+        notes.append(note("decimal_comma", "note", f"{name} uses a decimal comma; values such as '3,14' were read as 3.14"))
     return header, body, TextFormat(encoding, delimiter, decimal), notes
 
 
@@ -373,7 +380,11 @@ def _looks_like_identifier(col: TypedColumn, n_rows: int) -> str | None:
     # runs in order, covers a consecutive range of a longer table, or is named like one.
     consecutive = (v.max() - v.min()) == n_rows - 1 and n_rows >= ID_MIN_ROWS
     monotone = bool(np.all(diffs > 0) or np.all(diffs < 0)) and n_rows >= ID_MIN_ROWS
-    if consecutive or monotone or _ID_NAME.search(col.name):
+    if _ID_NAME.search(col.name):
+        return "identifier-like: every value is a distinct integer"
+    if _TIME_NAME.search(col.name):
+        return None  # a year or period counter is a feature, e.g. a trend
+    if consecutive or monotone:
         return "identifier-like: every value is a distinct integer"
     return None
 
@@ -507,7 +518,7 @@ def load(
         raise InputError("--target and --id-column name the same column", "choose different columns")
 
     excluded: list[dict] = []
-    notes: list[str] = list(meta["notes"])
+    notes: list[dict] = list(meta["notes"])
     typed: dict[str, TypedColumn] = {}
     candidates: list[str] = []
     for j, col in enumerate(header):
@@ -537,7 +548,8 @@ def load(
         if tc.values is not None and missing_count == n_rows:
             excluded.append({"column": col, "reason": "all values missing"})
             continue
-        id_reason = _looks_like_identifier(tc, n_rows)
+        # Columns named with --columns are features by the user's word: no id heuristic.
+        id_reason = None if columns is not None else _looks_like_identifier(tc, n_rows)
         if id_reason is not None:
             if labels_from is None:
                 labels_from = tc
@@ -626,14 +638,19 @@ def load(
             matrix, row_numbers, labels = matrix[keep], row_numbers[keep], labels[keep]
             if target_values is not None:
                 target_values = target_values[keep]
-            notes.append(f"{rows_dropped} row(s) with a missing feature value were dropped (listwise deletion)")
+            if rows_dropped:
+                notes.append(note("rows_dropped", "note", f"{rows_dropped} row(s) with a missing feature value were dropped (listwise deletion)"))
         else:  # mean imputation
             means = np.nanmean(matrix, axis=0)
             imputed = int(holes.sum())
             matrix = np.where(holes, means, matrix)
             notes.append(
-                f"{imputed} missing value(s) were replaced by their column mean; mean imputation "
-                "shrinks variances and correlations"
+                note(
+                    "mean_imputation",
+                    "caution",
+                    f"{imputed} missing value(s) were replaced by their column mean; mean imputation "
+                    "shrinks variances and correlations",
+                )
             )
     if matrix.shape[0] < MIN_ROWS:
         raise InputError(
@@ -659,7 +676,7 @@ def load(
 
     binary = [c for j, c in enumerate(kept) if set(np.unique(matrix[:, j]).tolist()) <= {0.0, 1.0}]
     for c in binary:
-        notes.append(f"column {c!r} is binary (0/1); PCA treats it as continuous, read its loadings with care")
+        notes.append(note("binary_column", "caution", f"column {c!r} is binary (0/1); PCA treats it as continuous, read its loadings with care", c))
     order = {c: i for i, c in enumerate(header)}
     excluded.sort(key=lambda e: order.get(e["column"], len(order)))
     return IntakeResult(

@@ -194,6 +194,23 @@ class Moments:
             rows_seen=self.rows_seen,
         )
 
+    def subset(self, columns: list[str]) -> "Moments":
+        """The moments of some of the columns (exact: every statistic is per column or pair)."""
+        idx = [self.columns.index(c) for c in columns]
+        return Moments(
+            columns=list(columns),
+            n=self.n,
+            mean=self.mean[idx].copy(),
+            comoment=self.comoment[np.ix_(idx, idx)].copy(),
+            m3=self.m3[idx].copy(),
+            m4=self.m4[idx].copy(),
+            minimum=self.minimum[idx].copy(),
+            maximum=self.maximum[idx].copy(),
+            zeros=self.zeros[idx].copy(),
+            missing=self.missing[idx].copy(),
+            rows_seen=self.rows_seen,
+        )
+
     # ------------------------------------------------------------------ figures
     def covariance(self) -> np.ndarray:
         """Sample covariance matrix, divisor ``n - 1``."""

@@ -12,10 +12,12 @@ from importlib import metadata
 import numpy as np
 
 from . import __version__, intake as intake_mod
+from .analysis.diagnostics import Thresholds, diagnostics_section, run_diagnostics
 from .analysis.profile import column_profiles
 from .errors import InputError
 from .moments import Moments
 from .record import SCHEMA_VERSION, jsonable, new_record_id, seal, utc_now
+from .rulebook import Rulebook, load_rulebook
 
 SCALINGS = ("auto", "standardize", "center", "robust", "pareto")
 
@@ -68,6 +70,38 @@ def software_versions() -> dict:
     return versions
 
 
+def thresholds_from(rulebook: Rulebook) -> Thresholds:
+    """The thresholds the analysis itself uses, taken from the rulebook in force."""
+    defaults = Thresholds()
+    return Thresholds(
+        condition_index=float(rulebook.threshold("condition_index_high", defaults.condition_index)),
+        variance_proportion=defaults.variance_proportion,
+        kmo_floor=float(rulebook.threshold("kmo_variable_low", defaults.kmo_floor)),
+        skew_for_log=float(rulebook.threshold("skew_log_candidate", defaults.skew_for_log)),
+        outlier_quantile=defaults.outlier_quantile,
+    )
+
+
+def intake_findings(result: intake_mod.IntakeResult) -> list[dict]:
+    """The intake's observations as findings (they have no threshold)."""
+    return [
+        {
+            "rule_id": f"intake.{n['id']}",
+            "severity": n["severity"],
+            "message": n["message"],
+            "value": None,
+            "threshold": None,
+            "source": "axisledger intake screening",
+            "figure": "input",
+            "subject": n.get("subject"),
+        }
+        for n in result.notes
+    ]
+
+
+_SEVERITY_ORDER = {"blocker": 0, "caution": 1, "note": 2}
+
+
 @dataclass
 class AuditResult:
     """What an audit produced: the record (a plain dict) and what was read."""
@@ -99,8 +133,14 @@ def compute_moments(data: np.ndarray, columns: list[str], missing_per_column: di
     return moments
 
 
-def build_record(intake: intake_mod.IntakeResult, moments: Moments, options: AuditOptions) -> dict:
-    """Assemble the record from the intake and the analysis results."""
+def build_record(
+    intake: intake_mod.IntakeResult,
+    moments: Moments,
+    options: AuditOptions,
+    rulebook: Rulebook,
+    diagnostics: dict,
+) -> dict:
+    """Assemble the record from the intake and the analysis results, judge it, seal it."""
     created = utc_now()
     record = {
         "schema_version": SCHEMA_VERSION,
@@ -112,6 +152,13 @@ def build_record(intake: intake_mod.IntakeResult, moments: Moments, options: Aud
         "tool": {"name": "axisledger", "version": __version__},
         "input": intake.input_section(),
         "screening": {"columns": [jsonable(p) for p in column_profiles(moments)]},
+        "diagnostics": diagnostics,
+        "rulebook": {
+            "path": rulebook.path if options.rules else "default.toml (built in)",
+            "sha256": rulebook.sha256,
+            "rules": len(rulebook.rules),
+            "thresholds": {rule.id: rule.threshold for rule in rulebook.rules},
+        },
         "options": {
             "scaling": options.scaling,
             "components": options.components,
@@ -132,7 +179,11 @@ def build_record(intake: intake_mod.IntakeResult, moments: Moments, options: Aud
         "findings": [],
         "signoffs": [],
     }
-    return seal(jsonable(record))
+    record = jsonable(record)
+    findings = intake_findings(intake) + rulebook.evaluate(record)
+    findings.sort(key=lambda f: _SEVERITY_ORDER.get(f["severity"], 3))  # stable: rule order kept
+    record["findings"] = jsonable(findings)
+    return seal(record)
 
 
 def run_audit(source, options: AuditOptions | None = None) -> AuditResult:
@@ -153,7 +204,17 @@ def run_audit(source, options: AuditOptions | None = None) -> AuditResult:
             f"--components {options.components} is more than the {len(result.columns_used)} features used",
             f"give a number from 1 to {len(result.columns_used)}",
         )
+    rulebook = load_rulebook(options.rules)
     moments = compute_moments(result.data, result.columns_used, result.missing_per_column)
-    record = build_record(result, moments, options)
+    diagnostics = run_diagnostics(
+        moments,
+        result.data,
+        result.row_labels,
+        result.row_numbers,
+        thresholds_from(rulebook),
+        rows_dropped=result.rows_dropped_missing,
+        rows_read=result.rows_read,
+    )
+    record = build_record(result, moments, options, rulebook, diagnostics_section(diagnostics))
     return AuditResult(record=record, intake=result, moments=moments)
 

@@ -171,7 +171,7 @@ def test_latin1_fallback_is_noted():
     text = "lot,température,débit\nA,1.5,2\nB,2.5,3.5\nC,0.5,1\nD,4.0,2.5\n"
     res = intake.load(_tmp_file(text, "l1.csv", encoding="latin-1"))
     assert res.columns_used == ["température", "débit"]
-    assert any("Latin-1" in n for n in res.notes)
+    assert any("Latin-1" in n["message"] for n in res.notes)
 
 
 def test_utf16_with_bom():
@@ -218,7 +218,7 @@ def test_binary_column_stays_with_a_note():
     text = "a,b,flag\n1.5,2,0\n2.5,5,1\n3.25,1,1\n5.5,4,0\n"
     res = intake.load(_tmp_file(text, "b.csv"))
     assert "flag" in res.columns_used and res.binary_columns == ["flag"]
-    assert any("binary" in n for n in res.notes)
+    assert any("binary" in n["message"] for n in res.notes)
 
 
 def test_identifier_columns_name_the_rows():
@@ -246,7 +246,7 @@ def test_mean_imputation_is_noted():
     res = intake.load(_tmp_file(text, "m.csv"), missing="mean")
     assert res.rows_used == 4 and res.values_imputed == 1
     assert res.data[1, 1] == pytest.approx(7 / 3)
-    assert any("shrinks" in n for n in res.notes)
+    assert any("shrinks" in n["message"] for n in res.notes)
 
 
 def test_parquet_and_dataframe_read_the_same(tmp_path):

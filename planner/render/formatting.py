@@ -16,11 +16,22 @@ def num(value, digits: int = 4) -> str:
         return "n/a"
     if value == 0:
         return "0"
+    if float(value).is_integer() and abs(value) < 1e6:
+        return f"{int(value):,}"
     magnitude = abs(value)
     if magnitude >= 1e6 or magnitude < 1e-3:
         return f"{value:.{digits - 1}e}"
     decimals = max(0, digits - 1 - int(math.floor(math.log10(magnitude))))
     return f"{value:,.{decimals}f}"
+
+
+def p(value) -> str:
+    """A p-value with its relation sign: '= 0.031', '< 1e-16'."""
+    if value is None:
+        return "n/a"
+    if value < 1e-16:
+        return "< 1e-16"
+    return "= " + (f"{value:.3g}" if value >= 1e-3 else f"{value:.2e}")
 
 
 def pct(value, digits: int = 1) -> str:
@@ -38,4 +49,5 @@ class Formatters:
 
     num = staticmethod(num)
     pct = staticmethod(pct)
+    p = staticmethod(p)
     delimiter = staticmethod(delimiter)

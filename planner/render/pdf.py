@@ -15,17 +15,26 @@ from .html import render_html, stylesheet
 ATTACHMENT_NAME = "record.json"
 
 
-class FetchRefused(Exception):
-    """Raised by :func:`safe_url_fetcher` for any URL that is not inline data."""
+class FetchRefused(ValueError):
+    """Raised by the fetcher for any URL that is not inline data."""
 
 
-def safe_url_fetcher(url: str, timeout: int = 10, ssl_context=None):
-    """Serve inline ``data:`` URLs only; refuse files, HTTP and everything else."""
-    if url.startswith("data:"):
-        from weasyprint.urls import default_url_fetcher
+def _offline_fetcher():
+    """A WeasyPrint URL fetcher that serves inline ``data:`` URLs and refuses the rest."""
+    from weasyprint.urls import URLFetcher
 
-        return default_url_fetcher(url, timeout=timeout, ssl_context=ssl_context)
-    raise FetchRefused(f"axisledger renders offline and does not fetch {url[:80]!r}")
+    class OfflineFetcher(URLFetcher):
+        def __init__(self):
+            super().__init__(allowed_protocols=("data",), allow_redirects=False, fail_on_errors=False)
+            self.refused: list[str] = []
+
+        def fetch(self, url, headers=None):
+            if not url.startswith("data:"):
+                self.refused.append(url)
+                raise FetchRefused(f"axisledger renders offline and does not fetch {url[:80]!r}")
+            return super().fetch(url, headers)
+
+    return OfflineFetcher()
 
 
 def render_pdf_bytes(record: dict, charts: dict | None = None) -> bytes:
@@ -34,11 +43,12 @@ def render_pdf_bytes(record: dict, charts: dict | None = None) -> bytes:
 
     logging.getLogger("weasyprint").setLevel(logging.CRITICAL)
     logging.getLogger("fontTools").setLevel(logging.CRITICAL)
+    fetcher = _offline_fetcher()
     html = render_html(record, charts=charts)
-    document = weasyprint.HTML(string=html, base_url=None, url_fetcher=safe_url_fetcher)
-    css = weasyprint.CSS(string=stylesheet(), url_fetcher=safe_url_fetcher)
+    document = weasyprint.HTML(string=html, base_url=None, url_fetcher=fetcher)
+    css = weasyprint.CSS(string=stylesheet(), url_fetcher=fetcher)
     attachment = weasyprint.Attachment(
         string=dumps(record), name=ATTACHMENT_NAME, description="axisledger decision record (JSON)",
-        url_fetcher=safe_url_fetcher,
+        url_fetcher=fetcher,
     )
     return document.write_pdf(stylesheets=[css], attachments=[attachment])
