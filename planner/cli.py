@@ -65,6 +65,8 @@ def _add_audit_options(p: argparse.ArgumentParser) -> None:
     p.add_argument("--rules", default=None, help="a rulebook TOML file replacing the default one")
     p.add_argument("--seed", default=0, type=_seed, help="seed for every random step (default 0)")
     p.add_argument("--sheet", default=None, help="sheet of an .xlsx workbook (default: the first)")
+    p.add_argument("--parallel-null", default="wishart", choices=["wishart", "permutation"],
+                   help="null of parallel analysis: Wishart draws (default) or permuted columns")
     p.add_argument("--no-pdf", action="store_true", help="write record.json only")
 
 
@@ -112,6 +114,7 @@ def cmd_audit(args, argv: list[str]) -> int:
         rules=args.rules,
         seed=args.seed,
         sheet=args.sheet,
+        parallel_null=args.parallel_null,
         command_line=_command_line(argv),
     )
     result = run_audit(args.data, options)

@@ -12,7 +12,9 @@ from importlib import metadata
 import numpy as np
 
 from . import __version__, intake as intake_mod
+from .analysis.components import analyse_components, components_section, decomposition_section
 from .analysis.diagnostics import Thresholds, diagnostics_section, run_diagnostics
+from .analysis.scaling import ScalingEvidence, choose_scaling, make_scaling, unit_of
 from .analysis.profile import column_profiles
 from .errors import InputError
 from .moments import Moments
@@ -39,6 +41,7 @@ class AuditOptions:
     rules: str | None = None
     seed: int = 0
     sheet: str | None = None
+    parallel_null: str = "wishart"
     command_line: list[str] = field(default_factory=list)
 
     def validate(self) -> None:
@@ -55,6 +58,8 @@ class AuditOptions:
             raise InputError("--because only goes with --components N", "drop --because or give --components N")
         if isinstance(self.seed, bool) or not isinstance(self.seed, (int, np.integer)) or self.seed < 0:
             raise InputError(f"--seed must be a whole number >= 0, got {self.seed!r}", "for example --seed 7")
+        if self.parallel_null not in ("wishart", "permutation"):
+            raise InputError(f"unknown parallel-analysis null {self.parallel_null!r}", "use wishart or permutation")
         if self.title is not None and not str(self.title).strip():
             raise InputError("--title is empty", "give a title, e.g. --title 'Kiln line review'")
 
@@ -102,6 +107,22 @@ def intake_findings(result: intake_mod.IntakeResult) -> list[dict]:
 _SEVERITY_ORDER = {"blocker": 0, "caution": 1, "note": 2}
 
 
+def audit_events(created: str, options: AuditOptions, override: dict | None) -> list[dict]:
+    """The events up to the record's creation, inside the hashed body (DESIGN.md)."""
+    events = [{"event": "created", "at": created, "by": options.analyst, "detail": "record created by audit"}]
+    if override:
+        events.append(
+            {
+                "event": "override",
+                "at": created,
+                "by": options.analyst,
+                "detail": f"components {override['components']} instead of the recommended {override['recommended']}",
+                "because": override["because"],
+            }
+        )
+    return events
+
+
 @dataclass
 class AuditResult:
     """What an audit produced: the record (a plain dict) and what was read."""
@@ -138,7 +159,7 @@ def build_record(
     moments: Moments,
     options: AuditOptions,
     rulebook: Rulebook,
-    diagnostics: dict,
+    sections: dict,
 ) -> dict:
     """Assemble the record from the intake and the analysis results, judge it, seal it."""
     created = utc_now()
@@ -152,7 +173,7 @@ def build_record(
         "tool": {"name": "axisledger", "version": __version__},
         "input": intake.input_section(),
         "screening": {"columns": [jsonable(p) for p in column_profiles(moments)]},
-        "diagnostics": diagnostics,
+        **sections,
         "rulebook": {
             "path": rulebook.path if options.rules else "default.toml (built in)",
             "sha256": rulebook.sha256,
@@ -164,6 +185,7 @@ def build_record(
             "components": options.components,
             "missing": options.missing,
             "seed": int(options.seed),
+            "parallel_null": options.parallel_null,
             "columns": intake_mod.split_names(options.columns),
             "exclude": intake_mod.split_names(options.exclude),
             "id_column": options.id_column,
@@ -175,7 +197,7 @@ def build_record(
             "software": software_versions(),
             "platform": f"{platform.system()} {platform.machine()}",
         },
-        "audit_trail": [{"event": "created", "at": created, "by": options.analyst, "detail": "record created by audit"}],
+        "audit_trail": audit_events(created, options, sections["components"].get("override")),
         "findings": [],
         "signoffs": [],
     }
@@ -199,10 +221,12 @@ def run_audit(source, options: AuditOptions | None = None) -> AuditResult:
         missing=options.missing,
         sheet=options.sheet,
     )
-    if options.components != "auto" and options.components > len(result.columns_used):
+    if options.components != "auto" and options.components > min(len(result.columns_used), result.rows_used - 1):
         raise InputError(
-            f"--components {options.components} is more than the {len(result.columns_used)} features used",
-            f"give a number from 1 to {len(result.columns_used)}",
+            f"--components {options.components} is more than the {len(result.columns_used)} features used"
+            if options.components > len(result.columns_used)
+            else f"--components {options.components} is more than the {result.rows_used - 1} components {result.rows_used} rows allow",
+            f"give a number from 1 to {min(len(result.columns_used), result.rows_used - 1)}",
         )
     rulebook = load_rulebook(options.rules)
     moments = compute_moments(result.data, result.columns_used, result.missing_per_column)
@@ -215,6 +239,53 @@ def run_audit(source, options: AuditOptions | None = None) -> AuditResult:
         rows_dropped=result.rows_dropped_missing,
         rows_read=result.rows_read,
     )
-    record = build_record(result, moments, options, rulebook, diagnostics_section(diagnostics))
+    diag_section = diagnostics_section(diagnostics)
+    scaling = scaling_for(options.scaling, moments, result.data, diag_section, rulebook)
+    evidence = analyse_components(
+        moments,
+        result.data,
+        scaling,
+        seed=options.seed,
+        share=float(rulebook.threshold("kept_share_low", 0.80)),
+        permutation=options.parallel_null == "permutation",
+    )
+    available = len(evidence.decomposition.eigenvalues)
+    override = None
+    chosen = evidence.recommended
+    if options.components != "auto":
+        if options.components > available:
+            raise InputError(
+                f"--components {options.components} is more than the {available} components that exist",
+                f"give a number from 1 to {available}",
+            )
+        chosen = int(options.components)
+        override = {
+            "components": chosen,
+            "recommended": evidence.recommended,
+            "because": options.because.strip(),
+            "by": options.analyst,
+        }
+    sections = {
+        "diagnostics": diag_section,
+        "decomposition": decomposition_section(evidence, result.columns_used),
+        "components": components_section(evidence, chosen, override),
+    }
+    record = build_record(result, moments, options, rulebook, sections)
     return AuditResult(record=record, intake=result, moments=moments)
+
+
+def scaling_for(requested: str, moments: Moments, rows, diagnostics: dict, rulebook: Rulebook):
+    """The scaling asked for, or the one the ``auto`` policy chooses from the diagnostics."""
+    if requested != "auto":
+        return make_scaling(requested, moments, rows, [f"{requested} was requested (--scaling {requested})"], requested)
+    outliers = diagnostics.get("outliers") or {}
+    evidence = ScalingEvidence(
+        sd_ratio=diagnostics["scale"]["sd_ratio"],
+        sd_ratio_threshold=float(rulebook.threshold("scale_disparity", 10.0)),
+        units={c: unit_of(c) for c in moments.columns},
+        outlier_share=outliers.get("share"),
+        outlier_share_threshold=float(rulebook.threshold("outliers_many", 0.05)),
+    )
+    method, reasons = choose_scaling(evidence)
+    return make_scaling(method, moments, rows, reasons, "auto")
 

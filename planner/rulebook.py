@@ -58,6 +58,10 @@ KNOWN_FIGURES: dict[str, str] = {
     "diagnostics.without_dependents.kmo.per_variable": "KMO without the exactly dependent features (per feature)",
     "diagnostics.outliers.count": "number of rows beyond the 97.5% chi-squared limit of the Mahalanobis distance",
     "input.rows_used": "number of rows that entered the analysis",
+    "components.kept_share": "share of the total variance that the chosen components keep",
+    "components.recommended": "the recommended number of components",
+    "components.chosen": "the number of components chosen",
+    "components.overridden": "true when --components N overrode the recommendation",
 }
 
 COMPARISONS: tuple[str, ...] = (">", ">=", "<", "<=", "==", "!=")

@@ -43,6 +43,8 @@ DEFAULT_IDS = [
     "kmo_variable_low_without_dependents",
     "bartlett_not_significant_without_dependents",
     "condition_number_high_without_dependents",
+    "kept_share_low",
+    "components_overridden",
 ]
 
 

@@ -78,4 +78,103 @@ def charts_for(record: dict) -> dict:
         url = correlation_heatmap(corr["columns"], corr["matrix"])
         if url:
             charts["correlation"] = url
+    dec, comp = record.get("decomposition"), record.get("components")
+    if dec and comp:
+        rules = comp["rules"]
+        pa = rules.get("parallel_analysis", {})
+        bs = rules.get("broken_stick", {})
+        iv = dec.get("intervals") or {}
+        chosen = comp["chosen"]
+        charts["scree"] = scree_chart(
+            dec["eigenvalues"], pa.get("null_percentile"), pa.get("null_mean"), bs.get("expected_share"),
+            dec["trace"], chosen, iv.get("eigenvalue_low"), iv.get("eigenvalue_high"),
+        )
+        share = rules.get("cumulative_variance", {}).get("share", 0.8)
+        charts["cumulative"] = cumulative_chart(dec["cumulative_ratio"], share, chosen, iv.get("cumulative_low"), iv.get("cumulative_high"))
+        heat = loadings_heatmap(list(dec["loadings"]), dec["loadings"], min(chosen, dec.get("loadings_components", chosen)))
+        if heat:
+            charts["loadings"] = heat
     return charts
+
+
+def scree_chart(eigenvalues, null_percentile, null_mean, broken_stick_share, trace, chosen, low=None, high=None) -> str:
+    """Eigenvalues with the parallel-analysis threshold and the broken-stick curve."""
+    import numpy as np
+
+    plt = _pyplot()
+    q = min(len(eigenvalues), 40)
+    x = np.arange(1, q + 1)
+    fig, ax = plt.subplots(figsize=(6.4, 3.2))
+    ev = np.asarray(eigenvalues[:q], float)
+    if low is not None and high is not None:
+        ax.fill_between(x, np.asarray(low[:q], float), np.minimum(np.asarray(high[:q], float), ev.max() * 1.5),
+                        color=GREEN, alpha=0.12, linewidth=0, label="95% interval")
+    ax.plot(x, ev, "-o", color=INK, markersize=3.5, linewidth=1.2, label="eigenvalue")
+    ax.plot(x[:chosen], ev[:chosen], "o", color=GREEN, markersize=6, label=f"kept ({chosen})")
+    if null_percentile is not None:
+        ax.plot(x, np.asarray(null_percentile[:q], float), "--", color=OCHRE, linewidth=1.1, label="parallel analysis, 95th percentile")
+    if null_mean is not None:
+        ax.plot(x, np.asarray(null_mean[:q], float), ":", color=OCHRE, linewidth=1.0, label="parallel analysis, mean")
+    if broken_stick_share is not None:
+        ax.plot(x, np.asarray(broken_stick_share[:q], float) * trace, "-.", color=SLATE, linewidth=1.0, label="broken stick")
+    ax.set_xlabel("component")
+    ax.set_ylabel("eigenvalue")
+    ax.set_xticks(x if q <= 20 else x[::2])
+    ax.spines[["top", "right"]].set_visible(False)
+    ax.legend(frameon=False, fontsize=7)
+    url = svg_data_url(fig)
+    plt.close(fig)
+    return url
+
+
+def cumulative_chart(cumulative, share, chosen, low=None, high=None) -> str:
+    """Cumulative explained share with the rulebook's share and the chosen k."""
+    import numpy as np
+
+    plt = _pyplot()
+    q = min(len(cumulative), 40)
+    x = np.arange(1, q + 1)
+    fig, ax = plt.subplots(figsize=(6.4, 2.6))
+    cum = np.asarray(cumulative[:q], float) * 100
+    if low is not None and high is not None:
+        ax.fill_between(x, np.asarray(low[:q], float) * 100, np.asarray(high[:q], float) * 100, color=GREEN, alpha=0.15, linewidth=0, label="95% interval")
+    ax.bar(x, cum, color=[GREEN if i < chosen else "#c8ced3" for i in range(q)], width=0.7)
+    ax.axhline(share * 100, color=OCHRE, linestyle="--", linewidth=1.0, label=f"{share:.0%} share")
+    ax.set_ylim(0, 100)
+    ax.set_xlabel("number of components")
+    ax.set_ylabel("cumulative share (%)")
+    ax.set_xticks(x if q <= 20 else x[::2])
+    ax.spines[["top", "right"]].set_visible(False)
+    ax.legend(frameon=False, fontsize=7, loc="lower right")
+    url = svg_data_url(fig)
+    plt.close(fig)
+    return url
+
+
+def loadings_heatmap(columns, loadings, chosen) -> str | None:
+    """Loadings of the kept components, one row a feature."""
+    if not columns or len(columns) > MAX_HEATMAP_FEATURES or chosen < 1:
+        return None
+    import numpy as np
+    from matplotlib.colors import LinearSegmentedColormap
+
+    plt = _pyplot()
+    values = np.array([[np.nan if v is None else v for v in loadings[c][:chosen]] for c in columns], dtype=float)
+    limit = float(np.nanmax(np.abs(values))) or 1.0
+    cmap = LinearSegmentedColormap.from_list("axisledger_diverging", [BRICK, "#f4f1ea", GREEN])
+    fig, ax = plt.subplots(figsize=(1.6 + 0.55 * chosen, 0.8 + 0.22 * len(columns)))
+    image = ax.imshow(values, cmap=cmap, vmin=-limit, vmax=limit, aspect="auto")
+    for i in range(values.shape[0]):
+        for j in range(values.shape[1]):
+            if np.isfinite(values[i, j]):
+                ax.text(j, i, f"{values[i, j]:.2f}", ha="center", va="center", fontsize=6, color=INK)
+    labels = [c if len(c) <= 28 else c[:27] + "\u2026" for c in columns]
+    ax.set_yticks(range(len(columns)), labels)
+    ax.set_xticks(range(chosen), [f"PC{j + 1}" for j in range(chosen)])
+    ax.xaxis.tick_top()
+    ax.tick_params(length=0)
+    for spine in ax.spines.values():
+        spine.set_visible(False)
+    url = svg_data_url(fig)
+    plt.close(fig)
+    return url

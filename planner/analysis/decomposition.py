@@ -1,0 +1,180 @@
+"""The decomposition: eigenvalues and loadings of the scaled features' covariance.
+
+Two routes give the same figures:
+
+* n > p: the symmetric eigendecomposition of the p x p matrix formed from the Moments;
+* p >= n: the thin SVD of the scaled, centred rows (no p x p matrix is needed); only the
+  min(n - 1, p) components with non-zero variance exist.
+
+Eigenvalues have the n - 1 divisor. Sign convention: each loading vector is signed so that
+its element of largest absolute value is positive (the first such element on a tie), which
+makes the loadings deterministic whatever the LAPACK build.
+"""
+from __future__ import annotations
+
+from dataclasses import dataclass
+
+import numpy as np
+import scipy.stats
+
+from ..moments import Moments
+from .scaling import Scaling
+
+
+@dataclass
+class Decomposition:
+    """Eigenvalues (descending), explained ratios, unit-norm loadings (p x q)."""
+
+    route: str
+    eigenvalues: np.ndarray
+    explained_ratio: np.ndarray
+    loadings: np.ndarray
+    trace: float
+    n: int
+    reason: str | None = None
+
+    @property
+    def cumulative(self) -> np.ndarray:
+        return np.cumsum(self.explained_ratio)
+
+
+def sign_convention(vectors: np.ndarray) -> np.ndarray:
+    """Flip each column so that its element of largest absolute value is positive."""
+    idx = np.argmax(np.abs(vectors), axis=0)
+    signs = np.sign(vectors[idx, np.arange(vectors.shape[1])])
+    signs[signs == 0] = 1.0
+    return vectors * signs
+
+
+def decompose_matrix(matrix: np.ndarray, n: int) -> Decomposition:
+    """Eigendecomposition of the symmetric p x p matrix decomposed (numpy.linalg.eigh)."""
+    values, vectors = np.linalg.eigh(matrix)
+    order = np.argsort(values)[::-1]
+    values, vectors = values[order], vectors[:, order]
+    values = np.clip(values, 0.0, None)  # a covariance matrix has no negative eigenvalues
+    trace = float(np.trace(matrix))
+    return Decomposition(
+        route="eigendecomposition of the p x p matrix from the Moments",
+        eigenvalues=values,
+        explained_ratio=values / trace,
+        loadings=sign_convention(vectors),
+        trace=trace,
+        n=n,
+    )
+
+
+def decompose_rows(z: np.ndarray) -> Decomposition:
+    """Thin SVD of the scaled rows (p >= n): eigenvalues s^2 / (n - 1), loadings V."""
+    n, p = z.shape
+    centred = z - z.mean(axis=0)
+    _, s, vt = np.linalg.svd(centred, full_matrices=False)
+    q = min(n - 1, p)
+    values = s[:q] ** 2 / (n - 1)
+    trace = float(np.sum(centred**2) / (n - 1))
+    return Decomposition(
+        route="thin SVD of the scaled rows (p >= n)",
+        eigenvalues=values,
+        explained_ratio=values / trace,
+        loadings=sign_convention(vt[:q].T),
+        trace=trace,
+        n=n,
+        reason=f"p >= n: only the {q} components with non-zero variance exist; the other {p - q} eigenvalues are 0",
+    )
+
+
+def decompose(moments: Moments, scaling: Scaling, rows: np.ndarray | None) -> Decomposition:
+    """Choose the route by shape and decompose."""
+    if moments.p >= moments.n:
+        if rows is None:
+            raise ValueError("p >= n needs the rows for the SVD route")
+        return decompose_rows(scaling.transform(rows))
+    return decompose_matrix(scaling.matrix(moments), moments.n)
+
+
+# ---------------------------------------------------------------------- intervals
+@dataclass
+class Intervals:
+    """Confidence intervals for each eigenvalue and for the cumulative explained share."""
+
+    method: str
+    level: float
+    eigenvalue_low: np.ndarray
+    eigenvalue_high: np.ndarray
+    cumulative_low: np.ndarray
+    cumulative_high: np.ndarray
+    resamples: int | None
+    note: str
+
+
+def anderson_intervals(d: Decomposition, level: float = 0.95) -> Intervals:
+    """Asymptotic intervals under multivariate normality (Anderson 1963).
+
+    A distinct eigenvalue l_k of a sample covariance matrix is asymptotically normal with
+    variance 2 lambda_k^2 / (n - 1), which gives l_k / (1 +- z sqrt(2 / (n - 1))). For the
+    cumulative share s_k = sum_{i<=k} l_i / T the delta method gives
+    var(s_k) = 2 / (n - 1) [(1 - s_k)^2 sum_{i<=k} l_i^2 + s_k^2 sum_{i>k} l_i^2] / T^2.
+    For a correlation matrix this is an approximation.
+
+    References
+    ----------
+    T. W. Anderson (1963), "Asymptotic theory for principal component analysis", Annals of
+    Mathematical Statistics 34(1), 122-148.
+    """
+    z = scipy.stats.norm.ppf(0.5 + level / 2)
+    c = np.sqrt(2.0 / (d.n - 1))
+    values = d.eigenvalues
+    low = values / (1 + z * c)
+    high = np.where(1 - z * c > 0, values / max(1 - z * c, 1e-300), np.inf)
+    total = float(np.sum(values))
+    cum = np.cumsum(values) / total
+    sq = values**2
+    head = np.cumsum(sq)
+    tail = np.sum(sq) - head
+    se = np.sqrt(2.0 / (d.n - 1) * ((1 - cum) ** 2 * head + cum**2 * tail)) / total
+    return Intervals(
+        method="asymptotic (Anderson 1963)",
+        level=level,
+        eigenvalue_low=low,
+        eigenvalue_high=high,
+        cumulative_low=np.clip(cum - z * se, 0, 1),
+        cumulative_high=np.clip(cum + z * se, 0, 1),
+        resamples=None,
+        note="normal-theory asymptotics; for a correlation matrix an approximation",
+    )
+
+
+def bootstrap_intervals(
+    rows: np.ndarray, scaling_method: str, make_matrix, level: float = 0.95, resamples: int = 200, seed: int = 0,
+    sample_note: str | None = None,
+) -> Intervals:
+    """Percentile intervals from a row bootstrap (Efron 1979).
+
+    ``make_matrix(sample)`` returns the matrix decomposed for a resample of rows, with the
+    centring and scaling re-estimated on the resample.
+    """
+    rng = np.random.default_rng(seed)
+    n = rows.shape[0]
+    values, cums = [], []
+    for _ in range(resamples):
+        sample = rows[rng.integers(0, n, n)]
+        m = make_matrix(sample)
+        if m is None:
+            continue
+        ev = np.clip(np.linalg.eigvalsh(m)[::-1], 0, None)
+        values.append(ev)
+        cums.append(np.cumsum(ev) / ev.sum())
+    values, cums = np.array(values), np.array(cums)
+    alpha = (1 - level) / 2 * 100
+    note = f"{len(values)} row resamples, percentile intervals"
+    if sample_note:
+        note += f"; {sample_note}"
+    return Intervals(
+        method="row bootstrap",
+        level=level,
+        eigenvalue_low=np.percentile(values, alpha, axis=0),
+        eigenvalue_high=np.percentile(values, 100 - alpha, axis=0),
+        cumulative_low=np.percentile(cums, alpha, axis=0),
+        cumulative_high=np.percentile(cums, 100 - alpha, axis=0),
+        resamples=len(values),
+        note=note,
+    )
