@@ -18,6 +18,11 @@ RESAMPLE_MAX_ROWS = 20_000
 #: The row bootstrap is used when its cost n p^2 stays below this; else Anderson's intervals.
 BOOTSTRAP_MAX_WORK = 1e8
 BOOTSTRAP_RESAMPLES = 200
+#: The revised parallel analysis (p^3 a draw, one null a component) runs up to this many features.
+REVISED_PA_MAX_FEATURES = 300
+#: Parallel analysis uses all its draws up to this dimension, fewer (at least PA_MIN_DRAWS) above.
+PA_FULL_DRAWS_MAX_DIM = 200
+PA_MIN_DRAWS = 100
 
 
 @dataclass
@@ -101,6 +106,9 @@ def evaluate_rules(
     rng_cv = np.random.default_rng([seed, 2])
     rng_sample = np.random.default_rng([seed, 3])
     variances = np.diag(scaling.matrix(moments)) if p < n else None
+    dim = p if p < n else n - 1
+    if dim > PA_FULL_DRAWS_MAX_DIM:  # a draw costs dim^3: fewer draws for very wide tables
+        draws = max(PA_MIN_DRAWS, int(draws * (PA_FULL_DRAWS_MAX_DIM / dim) ** 3))
     if permutation and rows is not None:
         pa = retention.parallel_analysis(lam, n, p, rng_pa, standardized, variances, draws=draws,
                                          permuted_rows=rows, make_matrix=matrix_of_rows(scaling.method))
@@ -124,32 +132,46 @@ def evaluate_rules(
         "gavish_donoho": retention.gavish_donoho(lam, n, p),
         "cross_validation": retention.cross_validation(sample, scaler_of_rows(scaling.method), rng_cv, sample_note=note),
     }
+    if standardized and p < n and p <= REVISED_PA_MAX_FEATURES:
+        rules["revised_parallel_analysis"] = retention.revised_parallel_analysis(
+            lam, np.nan_to_num(moments.correlation()), n, np.random.default_rng([seed, 5]), draws=200, percentile=99.0,
+            max_k=min(p - 1, pa.k + 10),
+        )
+    else:
+        why = (
+            "defined for the correlation matrix (standardize)" if not standardized
+            else ("undefined: p >= n" if p >= n else f"not run above {REVISED_PA_MAX_FEATURES} features (cost)")
+        )
+        rules["revised_parallel_analysis"] = RuleResult("revised_parallel_analysis", None, "Green et al. (2012)", {}, reason=why)
     return rules, note
 
 
 # ---------------------------------------------------------------------- recommendation
-#: How much each rule's k counts in the recommendation, from its published track record:
-#: parallel analysis and MAP were the most accurate in Zwick and Velicer (1986); parallel
-#: analysis and the broken stick did best among the rules compared by Peres-Neto, Jackson
-#: and Somers (2005); Kaiser's rule overestimates and the cumulative share is arbitrary, so
-#: they are evidence only.
-RULE_WEIGHTS = {
-    "parallel_analysis": 3.0,
-    "velicer_map": 2.0,
-    "scree_elbow": 2.0,
-    "cross_validation": 2.0,
-    "gavish_donoho": 1.0,
-    "minka": 1.0,
-    "broken_stick": 1.0,
-    "kaiser": 0.0,
-    "cumulative_variance": 0.0,
+#: The rules that decide, and what the published comparisons say about the others. Horn's
+#: parallel analysis was the most accurate rule in Zwick and Velicer (1986) and among the
+#: best in Peres-Neto, Jackson and Somers (2005); its known weakness, missing components
+#: when the factors are correlated or when one large component dominates, is what the
+#: revised null of Green et al. (2012) corrects. The other rules are evidence, each with
+#: its known bias.
+DECIDING_RULES = ("parallel_analysis", "revised_parallel_analysis")
+KNOWN_BIAS = {  # (the direction the rule errs in, in published comparisons; what it is)
+    "kaiser": ("more", "overestimates, more so with many features (Zwick and Velicer 1986)"),
+    "cumulative_variance": (None, "an arbitrary share, not a test (Jolliffe 2002)"),
+    "broken_stick": ("fewer", "underestimates with weak loadings (Peres-Neto, Jackson and Somers 2005)"),
+    "velicer_map": ("fewer", "underestimates with weak loadings or few features per component (Zwick and Velicer 1986)"),
+    "minka": ("more", "assumes equal noise variance in every feature and overestimates when it is unequal"),
+    "gavish_donoho": ("fewer", "a denoising threshold for singular values, conservative for weak components"),
+    "cross_validation": ("fewer", "measures prediction of the whole table, conservative for weak components"),
+    "scree_elbow": (None, "an objective reading of the scree plot"),
 }
+RULE_WEIGHTS = {rid: (1.0 if rid in DECIDING_RULES else 0.0) for rid in (*retention.RULE_IDS, "revised_parallel_analysis")}
 
 RULE_NAMES = {
     "kaiser": "Kaiser-Guttman",
     "cumulative_variance": "cumulative share",
     "scree_elbow": "scree (optimal coordinates)",
     "parallel_analysis": "parallel analysis",
+    "revised_parallel_analysis": "revised parallel analysis",
     "broken_stick": "broken stick",
     "velicer_map": "Velicer's MAP",
     "minka": "Minka's evidence",
@@ -157,52 +179,60 @@ RULE_NAMES = {
     "cross_validation": "cross-validation",
 }
 
-
-def weighted_median(values: list[int], weights: list[float]) -> int:
-    """The smallest value at which the cumulative weight reaches half of the total."""
-    order = np.argsort(values, kind="stable")
-    v = np.asarray(values)[order]
-    w = np.asarray(weights)[order]
-    cum = np.cumsum(w)
-    return int(v[np.searchsorted(cum, cum[-1] / 2.0)])
+POLICY = (
+    "parallel analysis (Horn 1965, 95th percentile) decides; where the revised parallel analysis "
+    "(Green et al. 2012, 99th percentile), whose null keeps the components already found, "
+    "keeps more, its answer is taken; the other rules are evidence"
+)
 
 
 def recommend(rules: dict[str, RuleResult], decomposition: Decomposition) -> tuple[int, list[str]]:
-    """The recommended k: the weighted median of the rules' answers (see RULE_WEIGHTS)."""
-    voting = {rid: r.k for rid, r in rules.items() if r.k is not None and RULE_WEIGHTS.get(rid, 0) > 0}
+    """The recommended k and the reasons in plain words (see POLICY)."""
     q = len(decomposition.eigenvalues)
-    reasons: list[str] = []
-    if not voting:
-        return 1, ["no rule could be evaluated; one component is kept by default"]
-    k = weighted_median(list(voting.values()), [RULE_WEIGHTS[r] for r in voting])
-    agree = [RULE_NAMES[r] for r, v in voting.items() if v == k]
-    above = [f"{RULE_NAMES[r]} ({v})" for r, v in voting.items() if v > k]
-    below = [f"{RULE_NAMES[r]} ({v})" for r, v in voting.items() if v < k]
     pa = rules.get("parallel_analysis")
-    if pa is not None and pa.k is not None:
-        reasons.append(
-            f"parallel analysis, the rule with the best record in simulation studies (Zwick and Velicer 1986; "
-            f"Peres-Neto, Jackson and Somers 2005), keeps {pa.k}: the components whose eigenvalues exceed the 95th "
-            "percentile of eigenvalues from uncorrelated data of the same size"
-        )
-    reasons.append(f"{k} is the weighted median of the rules with a track record; {len(agree)} of them agree exactly: {', '.join(agree)}")
-    if above or below:
+    rpa = rules.get("revised_parallel_analysis")
+    reasons: list[str] = []
+    if pa is None or pa.k is None:
+        return 1, ["parallel analysis could not be computed; one component is kept by default"]
+    k = pa.k
+    reasons.append(
+        f"parallel analysis keeps {pa.k}: the components whose eigenvalues exceed the 95th percentile of "
+        "eigenvalues of uncorrelated data of the same size; it is the rule with the best record in "
+        "simulation studies (Zwick and Velicer 1986; Peres-Neto, Jackson and Somers 2005)"
+    )
+    if rpa is not None and rpa.k is not None:
+        if rpa.k > pa.k:
+            k = rpa.k
+            reasons.append(
+                f"the revised parallel analysis, whose null keeps the components already found, keeps {rpa.k}: "
+                "the plain null understates what correlated or dominant components leave for the next one "
+                "(Green et al. 2012), so its larger answer is taken"
+            )
+        else:
+            reasons.append(f"the revised parallel analysis (Green et al. 2012) agrees that no more than {pa.k} stand out from noise")
+    evidence = {rid: r.k for rid, r in rules.items() if rid not in DECIDING_RULES and r.k is not None}
+    agree = [RULE_NAMES[r] for r, v in evidence.items() if v == k]
+    if agree:
+        reasons.append(f"{len(agree)} of the {len(evidence)} other rules give the same number: {', '.join(agree)}")
+    for direction, members in (("more", [(r, v) for r, v in evidence.items() if v > k]),
+                               ("fewer", [(r, v) for r, v in evidence.items() if v < k])):
+        if not members:
+            continue
         parts = []
-        if above:
-            parts.append("more: " + ", ".join(above))
-        if below:
-            parts.append("fewer: " + ", ".join(below))
+        for r, v in members:
+            bias_direction, text = KNOWN_BIAS.get(r, (None, "see its evidence"))
+            parts.append(f"{RULE_NAMES[r]} {v}" + (f": {text}" if bias_direction in (direction, None) else ""))
         reasons.append(
-            "the rules that disagree (" + "; ".join(parts) + ") are outweighed; no single rule moves a weighted median"
+            f"the rules that keep {direction} do not outweigh the parallel analyses, which have the better record: "
+            + "; ".join(parts)
         )
-    kaiser = rules.get("kaiser")
-    if kaiser is not None and kaiser.k is not None and kaiser.k > k:
-        reasons.append(f"the eigenvalue-above-average rule ({kaiser.k}) is known to overestimate (Zwick and Velicer 1986)")
     if k == 0:
-        reasons.append("the rules find no structure beyond noise; one component is kept so that a plan exists, and the record says it")
+        reasons.append(
+            "no component stands out from noise: the features are close to uncorrelated; one component is "
+            "kept so that a plan exists, and a reduction is not supported by the data"
+        )
         k = 1
-    k = min(k, q)
-    return k, reasons
+    return min(k, q), reasons
 
 
 # ---------------------------------------------------------------------- entry points
@@ -299,7 +329,7 @@ def components_section(ev: ComponentEvidence, chosen: int, override: dict | None
         "recommended": ev.recommended,
         "chosen": chosen,
         "reasons": list(ev.reasons),
-        "policy": "weighted median of the rules' answers, weights from their published track record",
+        "policy": POLICY,
         "weights": dict(ev.weights),
         "kept_share": kept_share,
         "override": override,
