@@ -14,6 +14,7 @@ import numpy as np
 from . import __version__, intake as intake_mod
 from .analysis.components import analyse_components, components_section, decomposition_section
 from .analysis.diagnostics import Thresholds, diagnostics_section, run_diagnostics
+from .analysis.discarded import discarded_section
 from .analysis.scaling import ScalingEvidence, choose_scaling, make_scaling, unit_of
 from .analysis.profile import column_profiles
 from .errors import InputError
@@ -269,6 +270,19 @@ def run_audit(source, options: AuditOptions | None = None) -> AuditResult:
         "diagnostics": diag_section,
         "decomposition": decomposition_section(evidence, result.columns_used),
         "components": components_section(evidence, chosen, override),
+        "discarded": discarded_section(
+            evidence,
+            chosen,
+            moments,
+            result.data,
+            result.row_labels,
+            result.row_numbers,
+            floor=float(rulebook.threshold("feature_poorly_represented", 0.5)),
+            seed=options.seed,
+            target=result.target,
+            target_name=result.target_name,
+            signal_share=float(rulebook.threshold("target_signal_discarded", 0.05)),
+        ),
     }
     record = build_record(result, moments, options, rulebook, sections)
     return AuditResult(record=record, intake=result, moments=moments)

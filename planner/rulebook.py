@@ -62,6 +62,13 @@ KNOWN_FIGURES: dict[str, str] = {
     "components.recommended": "the recommended number of components",
     "components.chosen": "the number of components chosen",
     "components.overridden": "true when --components N overrode the recommendation",
+    "discarded.variance_fraction": "share of the total variance the kept components leave out",
+    "discarded.per_feature_retained": "share of each feature's variance the kept components reproduce (per feature)",
+    "discarded.share_rows_over_spe_limit": "share of rows beyond the 95% SPE limit",
+    "discarded.rows_over_spe_limit": "rows beyond the 95% SPE limit",
+    "discarded.rows_over_t2_limit": "rows beyond the 95% Hotelling T-squared limit",
+    "discarded.target.max_discarded_share": "largest share of the target's variance explained by one discarded component",
+    "discarded.target.loss": "cross-validated fit on all features minus the fit on the kept components",
 }
 
 COMPARISONS: tuple[str, ...] = (">", ">=", "<", "<=", "==", "!=")

@@ -59,6 +59,9 @@ Columns and the check each one is meant to exercise
 ``batch_load_kg``
     Exactly ``zone_a_load_kg + zone_b_load_kg`` (computed from the rounded parts in
     integer tenths, so the CSV values add up exactly): an exact linear dependency.
+``ambient_humidity_pct``
+    Hall humidity, %, 35-65, unrelated to the process: no component represents it, so the
+    per-feature check of what is discarded names it as poorly represented.
 ``defect_count``
     Tiles rejected in the batch, an integer >= 1 drawn from a lognormal rate: strongly
     right-skewed (skewness > 2), so a log transform is suggested.
@@ -140,6 +143,7 @@ COLUMN_DECIMALS: dict[str, int | None] = {
     "zone_a_load_kg": 1,
     "zone_b_load_kg": 1,
     "batch_load_kg": 1,
+    "ambient_humidity_pct": 1,
     "defect_count": 0,
     "reground_glaze": 0,
     "calibration_offset": 2,
@@ -237,6 +241,10 @@ def kiln_line(seed: int = KILN_SEED, n: int = 240) -> pd.DataFrame:
             belt_speed[row] += 0.7
             defects[row] = defects[row] * 2.0 + 10.0
 
+    # Ambient humidity in the hall: logged with every batch, unrelated to the process.
+    # No component represents it well: the per-feature check must name it.
+    ambient_humidity = np.random.default_rng([seed, 7]).uniform(35.0, 65.0, n)
+
     values: dict[str, np.ndarray] = {
         "zone1_temp_c": z[0],
         "zone2_temp_c": z[1],
@@ -253,6 +261,7 @@ def kiln_line(seed: int = KILN_SEED, n: int = 240) -> pd.DataFrame:
         "cooling_air_m3_h": cooling_air,
         "tile_thickness_mm": tile_thickness,
         "kiln_o2_pct": kiln_o2,
+        "ambient_humidity_pct": ambient_humidity,
         "fuel_rate_nm3_h": fuel_rate,
         "flexural_strength_mpa": strength,
     }

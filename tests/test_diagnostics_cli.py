@@ -115,3 +115,21 @@ def test_demo_names_its_dependency_and_outliers(tmp_path):
     worst = {w["label"] for w in d["outliers"]["worst"][:5]}
     assert worst == {"B-0024", "B-0072", "B-0119", "B-0165", "B-0210"}
     assert "defect_count" in d["scale"]["log_candidates"]
+
+
+def test_demo_record_shows_what_is_discarded(tmp_path):
+    from .conftest import run_subprocess
+
+    r = run_subprocess("demo", "--out", "d", "--no-pdf", cwd=tmp_path)
+    assert r.code == 0, r
+    disc = load_json(tmp_path / "d" / "record.json")["discarded"]
+    # The generator makes ambient_humidity_pct unrelated to the process.
+    assert "ambient_humidity_pct" in disc["poorly_represented"]
+    # The planted upsets are the worst rows of the residual or of T-squared.
+    flagged = {w["label"] for w in disc["worst_spe"][:6]} | {w["label"] for w in disc["worst_t2"][:6]}
+    assert {"B-0024", "B-0072", "B-0119", "B-0165", "B-0210"} <= flagged
+    target = disc["target"]
+    assert target["target"] == "flexural_strength_mpa" and target["metric"] == "r2"
+    # The generator ties strength to a low-variance direction of the zone block.
+    assert target["r2_all_features"] > target["r2_kept_components"]
+    assert target["signal_carriers"]

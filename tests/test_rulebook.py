@@ -45,6 +45,10 @@ DEFAULT_IDS = [
     "condition_number_high_without_dependents",
     "kept_share_low",
     "components_overridden",
+    "feature_poorly_represented",
+    "spe_rows_many",
+    "target_signal_discarded",
+    "target_fit_lost",
 ]
 
 

@@ -91,6 +91,14 @@ def charts_for(record: dict) -> dict:
         )
         share = rules.get("cumulative_variance", {}).get("share", 0.8)
         charts["cumulative"] = cumulative_chart(dec["cumulative_ratio"], share, chosen, iv.get("cumulative_low"), iv.get("cumulative_high"))
+        disc = record.get("discarded") or {}
+        if disc.get("per_feature_retained"):
+            bars = retained_bars(disc["per_feature_retained"], disc.get("representation_floor", 0.5))
+            if bars:
+                charts["retained"] = bars
+        if disc.get("row_figures_for_chart"):
+            rf = disc["row_figures_for_chart"]
+            charts["spe_t2"] = spe_t2_chart(rf["spe"], rf["t2"], disc.get("spe_limit"), disc.get("t2_limit"))
         heat = loadings_heatmap(list(dec["loadings"]), dec["loadings"], min(chosen, dec.get("loadings_components", chosen)))
         if heat:
             charts["loadings"] = heat
@@ -175,6 +183,58 @@ def loadings_heatmap(columns, loadings, chosen) -> str | None:
     ax.tick_params(length=0)
     for spine in ax.spines.values():
         spine.set_visible(False)
+    url = svg_data_url(fig)
+    plt.close(fig)
+    return url
+
+
+def retained_bars(retained: dict, floor: float) -> str | None:
+    """Per-feature share of variance kept, the ones below the floor marked."""
+    if not retained or len(retained) > MAX_HEATMAP_FEATURES:
+        return None
+    plt = _pyplot()
+    names = list(retained)
+    values = [100 * (retained[c] or 0.0) for c in names]
+    fig, ax = plt.subplots(figsize=(6.4, 0.6 + 0.2 * len(names)))
+    colors = [BRICK if v < floor * 100 else GREEN for v in values]
+    ax.barh(range(len(names)), values, color=colors, height=0.7)
+    ax.axvline(floor * 100, color=OCHRE, linestyle="--", linewidth=1.0)
+    ax.set_yticks(range(len(names)), [c if len(c) <= 28 else c[:27] + "\u2026" for c in names])
+    ax.invert_yaxis()
+    ax.set_xlim(0, 100)
+    ax.set_xlabel("share of the feature's variance kept (%)")
+    ax.spines[["top", "right"]].set_visible(False)
+    url = svg_data_url(fig)
+    plt.close(fig)
+    return url
+
+
+def spe_t2_chart(spe, t2, spe_limit, t2_limit, labels_worst=None) -> str:
+    """SPE against Hotelling's T-squared of every row, with both 95% limits."""
+    import numpy as np
+
+    plt = _pyplot()
+    spe, t2 = np.asarray(spe, float), np.asarray(t2, float)
+    fig, ax = plt.subplots(figsize=(6.4, 3.4))
+    over = np.zeros(len(spe), bool)
+    if spe_limit is not None:
+        over |= spe > spe_limit
+    if t2_limit is not None:
+        over |= t2 > t2_limit
+    ax.scatter(t2[~over], spe[~over], s=8, color=SLATE, alpha=0.6, linewidths=0, label="within both limits")
+    ax.scatter(t2[over], spe[over], s=14, color=BRICK, alpha=0.9, linewidths=0, label="beyond a limit")
+    if spe_limit is not None:
+        ax.axhline(spe_limit, color=OCHRE, linestyle="--", linewidth=1.0, label="95% SPE limit")
+    if t2_limit is not None:
+        ax.axvline(t2_limit, color=GREEN, linestyle="--", linewidth=1.0, label="95% T\u00b2 limit")
+    ax.set_xscale("symlog", linthresh=1.0)
+    ax.set_yscale("symlog", linthresh=1.0)
+    ax.set_xlim(left=0)
+    ax.set_ylim(bottom=0)
+    ax.set_xlabel("Hotelling T\u00b2 (kept components)")
+    ax.set_ylabel("SPE (discarded part)")
+    ax.spines[["top", "right"]].set_visible(False)
+    ax.legend(frameon=False, fontsize=7)
     url = svg_data_url(fig)
     plt.close(fig)
     return url
