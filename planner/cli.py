@@ -84,6 +84,24 @@ def build_parser() -> argparse.ArgumentParser:
     audit.add_argument("data", help="the data file")
     _add_audit_options(audit)
 
+    sign = sub.add_parser("sign", help="add a sign-off to a record (optionally with an Ed25519 key)")
+    sign.add_argument("record", help="the record.json")
+    sign.add_argument("--name", required=True, help="the signer's printed name")
+    sign.add_argument("--role", required=True, choices=["author", "reviewer", "approver"])
+    sign.add_argument("--meaning", required=True, help="what the signature means, e.g. 'reviewed the method'")
+    sign.add_argument("--key", default=None, help="an Ed25519 private key in PEM (openssl genpkey -algorithm ed25519)")
+
+    verify = sub.add_parser("verify", help="check a record's content hash, sign-off chain and signatures")
+    verify.add_argument("record", help="record.json or record.pdf")
+    verify.add_argument("--data", default=None, help="the data file: check its SHA-256 against the record")
+
+    apply = sub.add_parser("apply", help="reduce new rows with a record's plan")
+    apply.add_argument("record", help="record.json or record.pdf")
+    apply.add_argument("data", help="the data file with the plan's feature columns")
+    apply.add_argument("--out", required=True, help="the CSV to write (PC1..PCk, spe, t2, beyond_limit)")
+    apply.add_argument("--allow-draft", action="store_true", help="apply a record that nobody has signed yet")
+    apply.add_argument("--force", action="store_true", help="replace an existing --out file")
+
     rules = sub.add_parser("rules", help="print the rulebook in force, with sources")
     rules.add_argument("--rules", default=None, help="a rulebook TOML file (default: the built-in one)")
     return parser
@@ -140,7 +158,44 @@ def cmd_rules(args, argv: list[str]) -> int:
     return 0
 
 
-COMMANDS = {"audit": cmd_audit, "demo": cmd_demo, "rules": cmd_rules}
+def cmd_sign(args, argv: list[str]) -> int:
+    from .ledger import sign_file
+
+    record = sign_file(args.record, args.name, args.role, args.meaning, args.key)
+    entry = record["signoffs"][-1]
+    keyed = f", Ed25519 key {entry['key_fingerprint'][:16]}" if "signature" in entry else ""
+    print(f"signed {record['record_id']} as {entry['role']} ({entry['name']}{keyed}); status {record['status']}; "
+          f"{len(record['signoffs'])} sign-off(s) on the chain")
+    print(f"  record    {args.record}")
+    print(f"  pdf       {Path(args.record).with_suffix('.pdf')}")
+    return 0
+
+
+def cmd_verify(args, argv: list[str]) -> int:
+    from .ledger import verify_file
+
+    checked = verify_file(args.record, args.data)
+    print(f"verified {args.record}")
+    for line in checked:
+        print(f"  ok  {line}")
+    return 0
+
+
+def cmd_apply(args, argv: list[str]) -> int:
+    from .ledger import apply_file
+
+    summary = apply_file(args.record, args.data, args.out, allow_draft=args.allow_draft, force=args.force)
+    print(f"wrote {summary['out']}: {summary['rows']} row(s), {summary['components']} component(s), "
+          f"{summary['beyond_limit']} beyond a 95% limit")
+    if summary["incomplete_rows"]:
+        print(f"  {summary['incomplete_rows']} row(s) have a missing feature value: their scores are empty")
+    if summary["extra_columns"]:
+        shown = ", ".join(summary["extra_columns"][:8])
+        print(f"  not in the plan, left out: {shown}{' ...' if len(summary['extra_columns']) > 8 else ''}")
+    return 0
+
+
+COMMANDS = {"audit": cmd_audit, "demo": cmd_demo, "rules": cmd_rules, "sign": cmd_sign, "verify": cmd_verify, "apply": cmd_apply}
 
 
 def _save_traceback() -> str:

@@ -132,6 +132,13 @@ class AuditResult:
     intake: intake_mod.IntakeResult
     moments: Moments
 
+    @property
+    def plan(self):
+        """The reduction plan of the record (``transform``, ``get_feature_names_out``)."""
+        from .plan import ReductionPlan
+
+        return ReductionPlan.from_record(self.record)
+
     def summary(self) -> str:
         from .render.summary import render_summary
 

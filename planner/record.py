@@ -116,7 +116,28 @@ def loads(text: str, name: str = "record") -> dict:
             f"{name} has schema_version {version!r}, this axisledger reads version {SCHEMA_VERSION}",
             "use the axisledger version that wrote it",
         )
+    validate(record, name)
     return record
+
+
+def schema() -> dict:
+    """The JSON Schema of the record (``planner/schema/record.schema.json``)."""
+    return json.loads((Path(__file__).parent / "schema" / "record.schema.json").read_text(encoding="utf-8"))
+
+
+def validate(record: dict, name: str = "record") -> None:
+    """Check ``record`` against the schema; an error names the file and the field."""
+    import jsonschema
+
+    validator = jsonschema.Draft202012Validator(schema())
+    errors = sorted(validator.iter_errors(record), key=lambda e: list(e.absolute_path))
+    if errors:
+        first = errors[0]
+        where = ".".join(str(p) for p in first.absolute_path) or "(top level)"
+        raise InputError(
+            f"{name} does not match the record schema at {where}: {first.message[:200]}",
+            "give a record written by axisledger, unchanged",
+        )
 
 
 def load(path: str | Path) -> dict:

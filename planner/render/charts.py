@@ -31,7 +31,7 @@ def _pyplot():
             "axes.labelcolor": INK,
             "xtick.color": INK,
             "ytick.color": INK,
-            "svg.fonttype": "path",
+            "svg.fonttype": "none",
             "svg.hashsalt": "axisledger",
         }
     )

@@ -13,6 +13,8 @@ from ..record import dumps
 from .html import render_html, stylesheet
 
 ATTACHMENT_NAME = "record.json"
+#: PDF/A-3b allows embedded files, so the archived PDF carries its JSON record.
+PDF_VARIANT = "pdf/a-3b"
 
 
 class FetchRefused(ValueError):
@@ -51,4 +53,7 @@ def render_pdf_bytes(record: dict, charts: dict | None = None) -> bytes:
         string=dumps(record), name=ATTACHMENT_NAME, description="axisledger decision record (JSON)",
         url_fetcher=fetcher,
     )
-    return document.write_pdf(stylesheets=[css], attachments=[attachment])
+    try:
+        return document.write_pdf(stylesheets=[css], attachments=[attachment], pdf_variant=PDF_VARIANT)
+    except (ValueError, TypeError, KeyError):  # a WeasyPrint without the variant: plain PDF
+        return document.write_pdf(stylesheets=[css], attachments=[attachment])
