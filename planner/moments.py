@@ -46,6 +46,11 @@ class Moments:
         Number of missing values per column among all rows seen.
     rows_seen : int
         All rows offered to :meth:`update`, complete or not.
+    m2 : ndarray (p,)
+        Sums of squared deviations per column (the diagonal of ``comoment``).
+    full : bool
+        With False only per-column moments are kept (``comoment`` is None): the wide-table
+        route, where a p x p matrix is neither needed nor affordable.
     """
 
     columns: list[str]
@@ -59,13 +64,16 @@ class Moments:
     zeros: np.ndarray = field(default=None)  # type: ignore[assignment]
     missing: np.ndarray = field(default=None)  # type: ignore[assignment]
     rows_seen: int = 0
+    m2: np.ndarray = field(default=None)  # type: ignore[assignment]
+    full: bool = True
 
     def __post_init__(self) -> None:
         self.columns = list(self.columns)
         p = len(self.columns)
         if self.mean is None:
             self.mean = np.zeros(p)
-            self.comoment = np.zeros((p, p))
+            self.comoment = np.zeros((p, p)) if self.full else None
+            self.m2 = np.zeros(p)
             self.m3 = np.zeros(p)
             self.m4 = np.zeros(p)
             self.minimum = np.full(p, np.inf)
@@ -79,9 +87,9 @@ class Moments:
 
     # ------------------------------------------------------------------ building
     @classmethod
-    def from_array(cls, x: np.ndarray, columns: list[str]) -> "Moments":
+    def from_array(cls, x: np.ndarray, columns: list[str], full: bool = True) -> "Moments":
         """Moments of a whole array in one step (the chunk formula on one chunk)."""
-        moments = cls(columns)
+        moments = cls(columns, full=full)
         moments.update(x)
         return moments
 
@@ -100,12 +108,12 @@ class Moments:
         complete = chunk[~nan.any(axis=1)] if nan.any() else chunk
         if complete.shape[0] == 0:
             return self
-        other = Moments._of_complete_rows(complete, self.columns)
+        other = Moments._of_complete_rows(complete, self.columns, self.full)
         self._merge_in(other)
         return self
 
     @staticmethod
-    def _of_complete_rows(x: np.ndarray, columns: list[str]) -> "Moments":
+    def _of_complete_rows(x: np.ndarray, columns: list[str], full: bool = True) -> "Moments":
         m = x.shape[0]
         mean = x.mean(axis=0)
         d = x - mean
@@ -118,7 +126,9 @@ class Moments:
             columns=columns,
             n=m,
             mean=mean,
-            comoment=d.T @ d,
+            comoment=d.T @ d if full else None,
+            m2=d2.sum(axis=0),
+            full=full,
             m3=(d2 * d).sum(axis=0),
             m4=(d2 * d2).sum(axis=0),
             minimum=x.min(axis=0),
@@ -135,6 +145,8 @@ class Moments:
         """
         if list(other.columns) != self.columns:
             raise ValueError("cannot merge moments of different columns")
+        if other.full != self.full:
+            raise ValueError("cannot merge full and per-column moments")
         result = self.copy()
         result._merge_in(other)
         result.missing = self.missing + other.missing
@@ -150,7 +162,9 @@ class Moments:
         if nb == 0:
             return
         if na == 0:
-            self.n, self.mean, self.comoment = nb, b.mean.copy(), b.comoment.copy()
+            self.n, self.mean = nb, b.mean.copy()
+            self.comoment = b.comoment.copy() if self.full else None
+            self.m2 = b.m2.copy()
             self.m3, self.m4 = b.m3.copy(), b.m4.copy()
             self.minimum = np.minimum(self.minimum, b.minimum)
             self.maximum = np.maximum(self.maximum, b.maximum)
@@ -158,7 +172,7 @@ class Moments:
             return
         n = na + nb
         delta = b.mean - self.mean
-        m2a, m2b = np.diag(self.comoment), np.diag(b.comoment)
+        m2a, m2b = self.m2, b.m2
         self.m4 = (
             self.m4
             + b.m4
@@ -172,7 +186,9 @@ class Moments:
             + delta**3 * na * nb * (na - nb) / n**2
             + 3.0 * delta * (na * m2b - nb * m2a) / n
         )
-        self.comoment = self.comoment + b.comoment + np.outer(delta, delta) * (na * nb / n)
+        if self.full:
+            self.comoment = self.comoment + b.comoment + np.outer(delta, delta) * (na * nb / n)
+        self.m2 = m2a + m2b + delta**2 * (na * nb / n)
         self.mean = self.mean + delta * (nb / n)
         self.n = n
         self.minimum = np.minimum(self.minimum, b.minimum)
@@ -184,7 +200,9 @@ class Moments:
             columns=list(self.columns),
             n=self.n,
             mean=self.mean.copy(),
-            comoment=self.comoment.copy(),
+            comoment=self.comoment.copy() if self.full else None,
+            m2=self.m2.copy(),
+            full=self.full,
             m3=self.m3.copy(),
             m4=self.m4.copy(),
             minimum=self.minimum.copy(),
@@ -201,7 +219,9 @@ class Moments:
             columns=list(columns),
             n=self.n,
             mean=self.mean[idx].copy(),
-            comoment=self.comoment[np.ix_(idx, idx)].copy(),
+            comoment=self.comoment[np.ix_(idx, idx)].copy() if self.full else None,
+            m2=self.m2[idx].copy(),
+            full=self.full,
             m3=self.m3[idx].copy(),
             m4=self.m4[idx].copy(),
             minimum=self.minimum[idx].copy(),
@@ -216,15 +236,21 @@ class Moments:
         """Sample covariance matrix, divisor ``n - 1``."""
         if self.n < 2:
             raise ValueError("the covariance needs at least two complete rows")
+        if not self.full:
+            raise ValueError("per-column moments have no covariance matrix")
         return self.comoment / (self.n - 1)
 
     def std(self) -> np.ndarray:
         """Sample standard deviation per column, divisor ``n - 1``."""
-        return np.sqrt(np.clip(np.diag(self.covariance()), 0.0, None))
+        if self.n < 2:
+            raise ValueError("the standard deviation needs at least two complete rows")
+        return np.sqrt(np.clip(self.m2 / (self.n - 1), 0.0, None))
 
     def correlation(self) -> np.ndarray:
         """Pearson correlation matrix. Columns with zero variance give NaN rows."""
-        diag = np.diag(self.comoment)
+        if not self.full:
+            raise ValueError("per-column moments have no correlation matrix")
+        diag = self.m2
         with np.errstate(divide="ignore", invalid="ignore"):
             inv = 1.0 / np.sqrt(diag)
             r = self.comoment * np.outer(inv, inv)
@@ -234,11 +260,11 @@ class Moments:
     def skewness(self) -> np.ndarray:
         """Sample skewness g1 = m3 / m2^(3/2) with population moments (biased form)."""
         with np.errstate(divide="ignore", invalid="ignore"):
-            m2 = np.diag(self.comoment) / self.n
+            m2 = self.m2 / self.n
             return (self.m3 / self.n) / m2**1.5
 
     def excess_kurtosis(self) -> np.ndarray:
         """Sample excess kurtosis g2 = m4 / m2^2 - 3 with population moments."""
         with np.errstate(divide="ignore", invalid="ignore"):
-            m2 = np.diag(self.comoment) / self.n
+            m2 = self.m2 / self.n
             return (self.m4 / self.n) / m2**2 - 3.0

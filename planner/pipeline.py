@@ -13,7 +13,7 @@ import numpy as np
 
 from . import __version__, intake as intake_mod
 from .analysis.components import analyse_components, components_section, decomposition_section
-from .analysis.diagnostics import Thresholds, diagnostics_section, run_diagnostics
+from .analysis.diagnostics import WIDE_FEATURES, Thresholds, diagnostics_section, run_diagnostics, wide_diagnostics_section
 from .analysis.discarded import discarded_section
 from .analysis.scaling import ScalingEvidence, choose_scaling, make_scaling, unit_of
 from .analysis.profile import column_profiles
@@ -155,9 +155,9 @@ class AuditResult:
         return render_html(self.record, fragment=True)
 
 
-def compute_moments(data: np.ndarray, columns: list[str], missing_per_column: dict[str, int]) -> Moments:
+def compute_moments(data: np.ndarray, columns: list[str], missing_per_column: dict[str, int], full: bool = True) -> Moments:
     """Moments of the rows used; the missing counts are those of the input, before the policy."""
-    moments = Moments.from_array(data, columns)
+    moments = Moments.from_array(data, columns, full=full)
     moments.missing = np.array([missing_per_column.get(c, 0) for c in columns], dtype=np.int64)
     return moments
 
@@ -237,17 +237,24 @@ def run_audit(source, options: AuditOptions | None = None) -> AuditResult:
             f"give a number from 1 to {min(len(result.columns_used), result.rows_used - 1)}",
         )
     rulebook = load_rulebook(options.rules)
-    moments = compute_moments(result.data, result.columns_used, result.missing_per_column)
-    diagnostics = run_diagnostics(
-        moments,
-        result.data,
-        result.row_labels,
-        result.row_numbers,
-        thresholds_from(rulebook),
-        rows_dropped=result.rows_dropped_missing,
-        rows_read=result.rows_read,
-    )
-    diag_section = diagnostics_section(diagnostics)
+    n, p = result.data.shape
+    wide = p >= n or p > WIDE_FEATURES
+    moments = compute_moments(result.data, result.columns_used, result.missing_per_column, full=not wide)
+    if wide:
+        diag_section = wide_diagnostics_section(
+            moments, thresholds_from(rulebook), result.rows_dropped_missing, result.rows_read
+        )
+    else:
+        diagnostics = run_diagnostics(
+            moments,
+            result.data,
+            result.row_labels,
+            result.row_numbers,
+            thresholds_from(rulebook),
+            rows_dropped=result.rows_dropped_missing,
+            rows_read=result.rows_read,
+        )
+        diag_section = diagnostics_section(diagnostics)
     scaling = scaling_for(options.scaling, moments, result.data, diag_section, rulebook)
     evidence = analyse_components(
         moments,

@@ -105,7 +105,7 @@ def evaluate_rules(
     rng_pa = np.random.default_rng([seed, 1])
     rng_cv = np.random.default_rng([seed, 2])
     rng_sample = np.random.default_rng([seed, 3])
-    variances = np.diag(scaling.matrix(moments)) if p < n else None
+    variances = moments.std() ** 2 / scaling.scale**2  # of the scaled features
     dim = p if p < n else n - 1
     if dim > PA_FULL_DRAWS_MAX_DIM:  # a draw costs dim^3: fewer draws for very wide tables
         draws = max(PA_MIN_DRAWS, int(draws * (PA_FULL_DRAWS_MAX_DIM / dim) ** 3))
@@ -115,12 +115,13 @@ def evaluate_rules(
     else:
         pa = retention.parallel_analysis(lam, n, p, rng_pa, standardized, variances, draws=draws)
     sample, note = row_sample(rows, rng_sample)
-    if p < n:
+    if p < n and moments.full:
         corr = moments.correlation()
         corr = np.nan_to_num(corr)
         velicer = retention.velicer_map(corr)
     else:
-        velicer = RuleResult("velicer_map", None, "Velicer (1976)", {}, reason="undefined: p >= n (R is singular)")
+        velicer = RuleResult("velicer_map", None, "Velicer (1976)", {},
+                             reason="undefined: p >= n (R is singular)" if p >= n else "not computed: no p x p matrix is formed for a table this wide")
     rules = {
         "kaiser": retention.kaiser(lam if p < n else np.concatenate([lam, np.zeros(p - len(lam))]), standardized),
         "cumulative_variance": retention.cumulative_variance(ratio, share),
@@ -132,7 +133,7 @@ def evaluate_rules(
         "gavish_donoho": retention.gavish_donoho(lam, n, p),
         "cross_validation": retention.cross_validation(sample, scaler_of_rows(scaling.method), rng_cv, sample_note=note),
     }
-    if standardized and p < n and p <= REVISED_PA_MAX_FEATURES:
+    if standardized and p < n and p <= REVISED_PA_MAX_FEATURES and moments.full:
         rules["revised_parallel_analysis"] = retention.revised_parallel_analysis(
             lam, np.nan_to_num(moments.correlation()), n, np.random.default_rng([seed, 5]), draws=200, percentile=99.0,
             max_k=min(p - 1, pa.k + 10),
@@ -250,11 +251,11 @@ def analyse_components(
     rules, note = evaluate_rules(decomposition, moments, scaling, rows, seed, share, draws, permutation)
     k, reasons = recommend(rules, decomposition)
     intervals = None
-    if rows is not None and moments.n * moments.p**2 <= BOOTSTRAP_MAX_WORK and moments.p < moments.n:
+    if rows is not None and moments.n * moments.p**2 <= BOOTSTRAP_MAX_WORK and moments.p < moments.n and moments.full:
         intervals = bootstrap_intervals(rows, scaling.method, matrix_of_rows(scaling.method), seed=seed + 4,
                                         resamples=BOOTSTRAP_RESAMPLES)
     elif moments.p < moments.n:
-        intervals = anderson_intervals(decomposition)
+        intervals = anderson_intervals(decomposition)  # from the eigenvalues alone
     return ComponentEvidence(scaling, decomposition, intervals, rules, k, reasons, note, dict(RULE_WEIGHTS))
 
 

@@ -84,10 +84,14 @@ def decompose_rows(z: np.ndarray) -> Decomposition:
 
 def decompose(moments: Moments, scaling: Scaling, rows: np.ndarray | None) -> Decomposition:
     """Choose the route by shape and decompose."""
-    if moments.p >= moments.n:
+    if moments.p >= moments.n or not moments.full:
         if rows is None:
-            raise ValueError("p >= n needs the rows for the SVD route")
-        return decompose_rows(scaling.transform(rows))
+            raise ValueError("the SVD route needs the rows")
+        d = decompose_rows(scaling.transform(rows))
+        if moments.p < moments.n:
+            d.route = "thin SVD of the scaled rows (wide table: no p x p matrix is formed)"
+            d.reason = None
+        return d
     return decompose_matrix(scaling.matrix(moments), moments.n)
 
 

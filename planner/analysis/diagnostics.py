@@ -214,3 +214,53 @@ def diagnostics_section(d: Diagnostics) -> dict:
     if p <= MAX_CORRELATION_IN_RECORD:
         section["correlation"] = {"columns": d.matrix.columns, "matrix": d.correlation}
     return jsonable(section)
+
+
+#: Above this many features (or when p >= n) no p x p matrix is formed: the wide route.
+WIDE_FEATURES = 2000
+
+
+def wide_diagnostics_section(moments: Moments, thresholds: Thresholds, rows_dropped: int, rows_read: int) -> dict:
+    """The diagnostics of a wide table (p >= n, or more than WIDE_FEATURES features): the
+    matrix figures are undefined (p >= n) or not computed, with the reason; the per-column
+    figures are as usual."""
+    n, p = moments.n, moments.p
+    if p >= n:
+        why = f"undefined: {p} features and {n} rows (p >= n), so R is singular"
+    else:
+        why = f"not computed: {p} features is above {WIDE_FEATURES}, where no p x p matrix is formed"
+    columns = list(moments.columns)
+    none_map = {c: None for c in columns}
+    matrix = {
+        "vif": none_map,
+        "vif_reason": why,
+        "vif_max": None,
+        "condition_number": None,
+        "condition_number_reason": why,
+        "bartlett": {"statistic": None, "df": p * (p - 1) // 2, "p_value": None, "log_det_r": None, "reason": why,
+                     "caveat": BartlettResult(None, 0, None, None, None).caveat},
+        "kmo": {"overall": None, "overall_band": None, "per_variable": none_map, "per_variable_band": none_map,
+                "candidates_to_drop": [], "floor": thresholds.kmo_floor, "reason": why, "bands_source": "Kaiser (1974)"},
+    }
+    s = scale_disparity(moments, thresholds.skew_for_log)
+    section = {
+        **matrix,
+        "exact_dependencies": [],
+        "exact_dependencies_count": None,
+        "exact_dependencies_reason": why,
+        "correlation_rank": None,
+        "condition_indices": {"scaling": None, "terms": [], "indices": [], "proportions": {}, "threshold": thresholds.condition_index,
+                              "near_dependencies": [], "max_index": None, "near_dependency_count": None, "reason": why,
+                              "source": "Belsley, Kuh and Welsch (1980)"},
+        "scale": {
+            "sd_ratio": s.sd_ratio, "largest_sd": s.largest_sd, "smallest_sd": s.smallest_sd, "cv": s.cv,
+            "skewness": s.skewness, "excess_kurtosis": s.excess_kurtosis, "positive_skewness": s.positive_skewness,
+            "log_candidates": s.log_candidates, "skew_threshold": s.skew_threshold,
+        },
+        "sample_size": {"n": n, "p": p, "n_per_feature": n / p},
+        "missing": {"share_rows_dropped": float(rows_dropped / rows_read) if rows_read else 0.0},
+        "outliers": {"method": "classical Mahalanobis distance", "quantile": thresholds.outlier_quantile, "df": None,
+                     "limit": None, "count": None, "share": None, "worst": [], "reason": why},
+        "wide_route": True,
+    }
+    return jsonable(section)

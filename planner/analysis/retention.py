@@ -14,6 +14,9 @@ import scipy.integrate
 import scipy.optimize
 import scipy.special
 
+#: Above this dimension parallel analysis uses the Marchenko-Pastur null instead of draws.
+SIMULATION_MAX_DIM = 400
+
 RULE_IDS = (
     "kaiser",
     "cumulative_variance",
@@ -208,6 +211,17 @@ def parallel_analysis(
     """
     lam = np.asarray(eigenvalues, float)
     q = len(lam)
+    if permuted_rows is None and min(p, n - 1) > SIMULATION_MAX_DIM:
+        scale = 1.0 if standardized or variances is None else float(np.mean(variances))
+        upper, mean = marchenko_pastur_null(q, p, n, scale)
+        return RuleResult(
+            "parallel_analysis",
+            _leading_run(lam > upper),
+            "Horn (1965); large-table null of Marchenko and Pastur (1967) with Tracy-Widom fluctuation (Johnstone 2001)",
+            {"method": "Marchenko-Pastur quantiles (no simulation above "
+                       f"{SIMULATION_MAX_DIM} dimensions)", "draws": 0, "percentile": percentile,
+             "null_percentile": upper, "null_mean": mean, "k_mean": _leading_run(lam > mean)},
+        )
     if permuted_rows is not None:
         null = np.empty((draws, q))
         x = permuted_rows.copy()
@@ -560,3 +574,39 @@ def _wishart_eigen_k(chol: np.ndarray, dof: int, draws: int, rng: np.random.Gene
         w = w * d[:, :, None] * d[:, None, :]
         out[start : start + b] = np.linalg.eigvalsh(w)[:, ::-1][:, index]
     return out
+
+
+def marchenko_pastur_null(q: int, p: int, n: int, variance: float = 1.0, grid: int = 4001) -> tuple[np.ndarray, np.ndarray]:
+    """Null eigenvalues for large tables without simulation (Marchenko and Pastur 1967).
+
+    With ratio gamma = p / (n - 1) (p <= n - 1; for p >= n the dual is used), the k-th
+    largest null eigenvalue is taken as the MP quantile at 1 - (k - 0.5) / p (the mean
+    evidence), and its 95th percentile adds Tracy-Widom's fluctuation of the largest
+    eigenvalue, 0.9793 sigma / (n - 1) with sigma = (sqrt(n - 1) + sqrt(p))
+    (1 / sqrt(n - 1) + 1 / sqrt(p))^(1/3) (Johnstone 2001; the 0.9793 quantile of TW1 is
+    from memory).
+
+    References
+    ----------
+    V. A. Marchenko and L. A. Pastur (1967), "Distribution of eigenvalues for some sets of
+    random matrices", Mathematics of the USSR-Sbornik 1(4), 457-483.
+    I. M. Johnstone (2001), "On the distribution of the largest eigenvalue in principal
+    components analysis", Annals of Statistics 29(2), 295-327.
+    """
+    m = n - 1
+    small, large = min(p, m), max(p, m)
+    gamma = small / large
+    lo, hi = (1 - math.sqrt(gamma)) ** 2, (1 + math.sqrt(gamma)) ** 2
+    t = np.linspace(lo, hi, grid)
+    dens = np.sqrt(np.clip((hi - t) * (t - lo), 0, None)) / (2 * math.pi * gamma * np.maximum(t, 1e-300))
+    cdf = np.concatenate([[0.0], np.cumsum((dens[1:] + dens[:-1]) / 2 * np.diff(t))])
+    cdf /= cdf[-1]
+    levels = 1.0 - (np.arange(1, q + 1) - 0.5) / small
+    quantiles = np.interp(np.clip(levels, 0, 1), cdf, t)
+    # Eigenvalues of the p x p covariance: scale by large / m (the dual for p > m).
+    mean = quantiles * (large / m) * variance
+    sigma = (math.sqrt(m) + math.sqrt(p)) * (1 / math.sqrt(m) + 1 / math.sqrt(p)) ** (1 / 3)
+    upper = mean + 0.9793 * sigma / m * variance
+    mean[small:] = 0.0
+    upper[small:] = 0.0
+    return upper, mean

@@ -44,10 +44,18 @@ def delimiter(value: str) -> str:
     return {",": "comma", ";": "semicolon", "\t": "tab", "|": "pipe"}.get(value, repr(value))
 
 
+def names(items, limit: int = 12) -> str:
+    """A list of names for a sentence, cut after ``limit`` with the count of the rest."""
+    items = list(items or [])
+    shown = ", ".join(str(i) for i in items[:limit])
+    return shown + (f" and {len(items) - limit} more" if len(items) > limit else "")
+
+
 class Formatters:
     """The formatting helpers as one object the templates receive as ``fmt``."""
 
     num = staticmethod(num)
     pct = staticmethod(pct)
     p = staticmethod(p)
+    names = staticmethod(names)
     delimiter = staticmethod(delimiter)
