@@ -68,6 +68,11 @@ def _add_audit_options(p: argparse.ArgumentParser) -> None:
     p.add_argument("--parallel-null", default="wishart", choices=["wishart", "permutation"],
                    help="null of parallel analysis: Wishart draws (default) or permuted columns")
     p.add_argument("--no-pdf", action="store_true", help="write record.json only")
+    p.add_argument("--engine", default="auto", choices=["auto", "memory", "stream", "dask"],
+                   help="memory, stream (chunks, for files larger than memory), dask (a folder or glob of parts); "
+                        "auto streams CSV/Parquet files over 256 MB")
+    p.add_argument("--scheduler", default=None, help="with --engine dask: the address of an existing cluster")
+    p.add_argument("--quiet", action="store_true", help="no progress bar")
 
 
 def build_parser() -> argparse.ArgumentParser:
@@ -133,6 +138,9 @@ def cmd_audit(args, argv: list[str]) -> int:
         seed=args.seed,
         sheet=args.sheet,
         parallel_null=args.parallel_null,
+        engine=args.engine,
+        scheduler=args.scheduler,
+        quiet=args.quiet,
         command_line=_command_line(argv),
     )
     result = run_audit(args.data, options)

@@ -23,6 +23,7 @@ from .record import SCHEMA_VERSION, jsonable, new_record_id, seal, utc_now
 from .rulebook import Rulebook, load_rulebook
 
 SCALINGS = ("auto", "standardize", "center", "robust", "pareto")
+ENGINES = ("auto", "memory", "stream", "dask")
 
 
 @dataclass
@@ -43,6 +44,9 @@ class AuditOptions:
     seed: int = 0
     sheet: str | None = None
     parallel_null: str = "wishart"
+    engine: str = "auto"
+    scheduler: str | None = None
+    quiet: bool = False
     command_line: list[str] = field(default_factory=list)
 
     def validate(self) -> None:
@@ -59,6 +63,8 @@ class AuditOptions:
             raise InputError("--because only goes with --components N", "drop --because or give --components N")
         if isinstance(self.seed, bool) or not isinstance(self.seed, (int, np.integer)) or self.seed < 0:
             raise InputError(f"--seed must be a whole number >= 0, got {self.seed!r}", "for example --seed 7")
+        if self.engine not in ENGINES:
+            raise InputError(f"unknown engine {self.engine!r}", f"use one of: {', '.join(ENGINES)}")
         if self.parallel_null not in ("wishart", "permutation"):
             raise InputError(f"unknown parallel-analysis null {self.parallel_null!r}", "use wishart or permutation")
         if self.title is not None and not str(self.title).strip():
@@ -194,6 +200,7 @@ def build_record(
             "missing": options.missing,
             "seed": int(options.seed),
             "parallel_null": options.parallel_null,
+            "engine": options.engine,
             "columns": intake_mod.split_names(options.columns),
             "exclude": intake_mod.split_names(options.exclude),
             "id_column": options.id_column,
@@ -220,6 +227,15 @@ def run_audit(source, options: AuditOptions | None = None) -> AuditResult:
     """Run the whole audit of ``source`` (a path or a pandas DataFrame)."""
     options = options or AuditOptions()
     options.validate()
+    engine = engine_for(source, options)
+    if engine == "stream":
+        from .streaming import run_stream_audit
+
+        return run_stream_audit(source, options, quiet=options.quiet)
+    if engine == "dask":
+        from .distributed import run_dask_audit
+
+        return run_dask_audit(source, options)
     result = intake_mod.load(
         source,
         columns=options.columns,
@@ -264,22 +280,7 @@ def run_audit(source, options: AuditOptions | None = None) -> AuditResult:
         share=float(rulebook.threshold("kept_share_low", 0.80)),
         permutation=options.parallel_null == "permutation",
     )
-    available = len(evidence.decomposition.eigenvalues)
-    override = None
-    chosen = evidence.recommended
-    if options.components != "auto":
-        if options.components > available:
-            raise InputError(
-                f"--components {options.components} is more than the {available} components that exist",
-                f"give a number from 1 to {available}",
-            )
-        chosen = int(options.components)
-        override = {
-            "components": chosen,
-            "recommended": evidence.recommended,
-            "because": options.because.strip(),
-            "by": options.analyst,
-        }
+    chosen, override = choose_components(evidence, options)
     sections = {
         "diagnostics": diag_section,
         "decomposition": decomposition_section(evidence, result.columns_used),
@@ -300,6 +301,40 @@ def run_audit(source, options: AuditOptions | None = None) -> AuditResult:
     }
     record = build_record(result, moments, options, rulebook, sections)
     return AuditResult(record=record, intake=result, moments=moments)
+
+
+def engine_for(source, options: AuditOptions) -> str:
+    """``memory`` for DataFrames, workbooks and ordinary files; ``stream`` for large CSV and
+    Parquet files with ``--engine auto``; what was asked for otherwise."""
+    from pathlib import Path
+
+    if options.engine in ("memory", "dask"):
+        return options.engine
+    if isinstance(source, (str, Path)) and Path(source).is_file():
+        from .streaming import AUTO_STREAM_BYTES, can_stream
+
+        kind = can_stream(Path(source))
+        if options.engine == "stream":
+            return "stream"
+        if kind and Path(source).stat().st_size > AUTO_STREAM_BYTES and options.missing != "mean":
+            return "stream"
+    elif options.engine == "stream" and not isinstance(source, (str, Path)):
+        raise InputError("--engine stream reads a file, not a DataFrame", "pass the path of a CSV or Parquet file")
+    return "memory"
+
+
+def choose_components(evidence, options: AuditOptions) -> tuple[int, dict | None]:
+    """The recommended k, or the user's N with the override kept for the audit trail."""
+    available = len(evidence.decomposition.eigenvalues)
+    if options.components == "auto":
+        return evidence.recommended, None
+    if options.components > available:
+        raise InputError(
+            f"--components {options.components} is more than the {available} components that exist",
+            f"give a number from 1 to {available}",
+        )
+    chosen = int(options.components)
+    return chosen, {"components": chosen, "recommended": evidence.recommended, "because": options.because.strip(), "by": options.analyst}
 
 
 def scaling_for(requested: str, moments: Moments, rows, diagnostics: dict, rulebook: Rulebook):

@@ -31,6 +31,14 @@ class OutlierScreen:
     reason: str | None
 
 
+def mahalanobis_d2(rows: np.ndarray, moments: Moments, spec: Spectrum) -> np.ndarray:
+    """Squared Mahalanobis distances z^T R^+ z of rows, z standardized by the Moments."""
+    keep = spec.values > spec.tolerance
+    z = (rows - moments.mean) / moments.std()
+    scores = z @ spec.vectors[:, keep]
+    return np.sum(scores**2 / spec.values[keep], axis=1)
+
+
 def mahalanobis_screen(
     rows: np.ndarray,
     moments: Moments,
@@ -60,9 +68,7 @@ def mahalanobis_screen(
     if p >= n:
         return OutlierScreen(method, quantile, None, None, None, None, [], f"undefined: {p} features and {n} rows (p >= n)")
     keep = spec.values > spec.tolerance
-    z = (rows - moments.mean) / moments.std()
-    scores = z @ spec.vectors[:, keep]
-    d2 = np.sum(scores**2 / spec.values[keep], axis=1)
+    d2 = mahalanobis_d2(rows, moments, spec)
     df = int(keep.sum())
     limit = float(scipy.stats.chi2.ppf(quantile, df))
     over = d2 > limit
