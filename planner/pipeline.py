@@ -334,6 +334,11 @@ def choose_components(evidence, options: AuditOptions) -> tuple[int, dict | None
             f"give a number from 1 to {available}",
         )
     chosen = int(options.components)
+    if chosen > evidence.decomposition.loadings.shape[1]:
+        raise InputError(
+            f"--components {chosen} is more than the {evidence.decomposition.loadings.shape[1]} components whose loadings are kept",
+            "choose fewer components",
+        )
     return chosen, {"components": chosen, "recommended": evidence.recommended, "because": options.because.strip(), "by": options.analyst}
 
 

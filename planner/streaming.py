@@ -191,21 +191,19 @@ def first_pass(path, kind, head, options, quiet: bool, full: bool) -> StreamPass
             if label_path:
                 lab.write("".join(_one_line(labels[i]) + "\n" for i in np.flatnonzero(complete)))
             # Seeded uniform sample: the SAMPLE_ROWS complete rows with the smallest keys.
-            keys = rng.random(int(complete.sum()))
-            lab_c = [_one_line(labels[i]) for i in np.flatnonzero(complete)] if labels is not None else [f"row {n}" for n in numbers[complete]]
+            idx_c = np.flatnonzero(complete)
+            keys = rng.random(len(idx_c))
             all_keys = np.concatenate([sample_keys, keys])
-            all_rows = np.vstack([sample, xc])
-            all_y = np.concatenate([sample_y, y[complete]]) if y is not None else sample_y
-            all_lab = sample_lab + lab_c
-            all_num = np.concatenate([sample_num, numbers[complete]])
-            if len(all_keys) > SAMPLE_ROWS:
-                keep = np.argpartition(all_keys, SAMPLE_ROWS)[:SAMPLE_ROWS]
-            else:
-                keep = np.arange(len(all_keys))
-            sample_keys, sample = all_keys[keep], all_rows[keep]
-            sample_y = all_y[keep] if y is not None else sample_y
-            sample_lab = [all_lab[i] for i in keep]
-            sample_num = all_num[keep]
+            keep = np.argpartition(all_keys, SAMPLE_ROWS)[:SAMPLE_ROWS] if len(all_keys) > SAMPLE_ROWS else np.arange(len(all_keys))
+            old = keep[keep < len(sample_keys)]
+            new = keep[keep >= len(sample_keys)] - len(sample_keys)
+            sample_keys = all_keys[keep]
+            sample = np.vstack([sample[old], xc[new]])
+            if y is not None:
+                sample_y = np.concatenate([sample_y[old], y[complete][new]])
+            new_labels = [_one_line(labels[idx_c[i]]) for i in new] if labels is not None else [f"row {numbers[idx_c[i]]}" for i in new]
+            sample_lab = [sample_lab[i] for i in old] + new_labels
+            sample_num = np.concatenate([sample_num[old], numbers[idx_c[new]]])
             rows_read += m
             used += int(complete.sum())
     order = np.argsort(sample_num)

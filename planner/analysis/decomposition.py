@@ -63,16 +63,54 @@ def decompose_matrix(matrix: np.ndarray, n: int) -> Decomposition:
     )
 
 
+#: With more rows than features, a wide table keeps the loadings of this many components.
+WIDE_LOADINGS = 100
+
+
+def decompose_wide_rows(z: np.ndarray) -> Decomposition:
+    """A table with more rows than features but too many features for the Moments' p x p
+    matrix: every eigenvalue from the cross-product of the scaled rows, and the loadings of
+    the leading WIDE_LOADINGS components from a partial symmetric eigensolver."""
+    import scipy.linalg
+
+    n, p = z.shape
+    centred = z - z.mean(axis=0)
+    gram = centred.T @ centred / (n - 1)
+    values = np.clip(np.linalg.eigvalsh(gram)[::-1], 0.0, None)
+    q = min(p, WIDE_LOADINGS)
+    _, vectors = scipy.linalg.eigh(gram, subset_by_index=[p - q, p - 1])
+    trace = float(np.trace(gram))
+    return Decomposition(
+        route=f"cross-product of the scaled rows (wide table: loadings of the first {q} components)",
+        eigenvalues=values,
+        explained_ratio=values / trace,
+        loadings=sign_convention(vectors[:, ::-1]),
+        trace=trace,
+        n=n,
+    )
+
+
 def decompose_rows(z: np.ndarray) -> Decomposition:
     """Thin SVD of the scaled rows (p >= n): eigenvalues s^2 / (n - 1), loadings V."""
     n, p = z.shape
+    if n > p:
+        return decompose_wide_rows(z)
     centred = z - z.mean(axis=0)
-    _, s, vt = np.linalg.svd(centred, full_matrices=False)
     q = min(n - 1, p)
+    if p > 2 * n:
+        # The n x n Gram route: Z Z^T = U S^2 U^T and V = Z^T U / S, no p x p matrix.
+        g_values, g_vectors = np.linalg.eigh(centred @ centred.T)
+        order = np.argsort(g_values)[::-1][:q]
+        s = np.sqrt(np.clip(g_values[order], 0.0, None))
+        vt = ((centred.T @ g_vectors[:, order]) / np.where(s > 0, s, 1.0)).T
+        route = "n x n Gram matrix of the scaled rows (p >> n)"
+    else:
+        _, s, vt = np.linalg.svd(centred, full_matrices=False)
+        route = "thin SVD of the scaled rows (p >= n)"
     values = s[:q] ** 2 / (n - 1)
     trace = float(np.sum(centred**2) / (n - 1))
     return Decomposition(
-        route="thin SVD of the scaled rows (p >= n)",
+        route=route,
         eigenvalues=values,
         explained_ratio=values / trace,
         loadings=sign_convention(vt[:q].T),
@@ -87,11 +125,7 @@ def decompose(moments: Moments, scaling: Scaling, rows: np.ndarray | None) -> De
     if moments.p >= moments.n or not moments.full:
         if rows is None:
             raise ValueError("the SVD route needs the rows")
-        d = decompose_rows(scaling.transform(rows))
-        if moments.p < moments.n:
-            d.route = "thin SVD of the scaled rows (wide table: no p x p matrix is formed)"
-            d.reason = None
-        return d
+        return decompose_rows(scaling.transform(rows))
     return decompose_matrix(scaling.matrix(moments), moments.n)
 
 

@@ -87,7 +87,7 @@ def discarded_section(
     d, sc = ev.decomposition, ev.scaling
     columns = list(moments.columns)
     overall = overall_discarded(d, k, ev.intervals)
-    if d.route.startswith("thin SVD"):
+    if not moments.full or moments.p >= moments.n:
         feature_var = np.var(sc.transform(rows), axis=0, ddof=1)
     else:
         feature_var = np.diag(sc.matrix(moments))

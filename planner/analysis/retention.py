@@ -11,9 +11,13 @@ from dataclasses import dataclass, field
 
 import numpy as np
 import scipy.integrate
+import scipy.linalg
 import scipy.optimize
 import scipy.special
 
+#: Minka's evidence is evaluated at every rank up to this many features, else up to MINKA_MAX_RANK.
+MINKA_FULL_FEATURES = 500
+MINKA_MAX_RANK = 100
 #: Above this dimension parallel analysis uses the Marchenko-Pastur null instead of draws.
 SIMULATION_MAX_DIM = 400
 
@@ -360,11 +364,14 @@ def minka(eigenvalues: np.ndarray, n: int, p: int) -> RuleResult:
     rank_data = int(np.sum(spectrum > tol))
     spectrum = spectrum[:rank_data]
     ll = np.full(p, -np.inf)
+    top_rank = rank_data if p <= MINKA_FULL_FEATURES else min(rank_data, MINKA_MAX_RANK + 1)
     with np.errstate(divide="ignore", invalid="ignore"):
-        for rank in range(1, rank_data):
+        for rank in range(1, top_rank):
             ll[rank] = minka_log_evidence(spectrum, rank, n)
     k = int(np.argmax(ll))
     evidence = {"log_evidence": ll}
+    if top_rank < rank_data:
+        evidence["note"] = f"ranks 1 to {MINKA_MAX_RANK} evaluated ({p} features: the evidence costs O(p^2) a rank)"
     if rank_data < p:
         evidence["note"] = f"fitted on the {rank_data} directions with non-zero variance"
     return RuleResult("minka", k, "Minka (2000)", evidence)
@@ -441,6 +448,23 @@ def ekf_press(train_loadings: np.ndarray, z_test: np.ndarray, kmax: int) -> np.n
     return press
 
 
+def leading_loadings(centred: np.ndarray, k: int) -> np.ndarray:
+    """The first k right singular vectors of centred rows: from the p x p cross-product with
+    a partial symmetric eigensolver when there are more rows than features, from the n x n
+    Gram matrix when there are far more features than rows, else by SVD."""
+    n, p = centred.shape
+    if n > p and p > 2 * k:
+        values, vectors = scipy.linalg.eigh(centred.T @ centred, subset_by_index=[p - k, p - 1])
+        return vectors[:, ::-1]
+    if p > 2 * n:  # the n x n Gram matrix: V = Z^T U / s
+        values, vectors = np.linalg.eigh(centred @ centred.T)
+        order = np.argsort(values)[::-1][:k]
+        s = np.sqrt(np.clip(values[order], 1e-300, None))
+        return (centred.T @ vectors[:, order]) / s
+    _, _, vt = np.linalg.svd(centred, full_matrices=False)
+    return vt[:k].T
+
+
 def cross_validation(
     rows: np.ndarray | None,
     scale_fn,
@@ -477,8 +501,7 @@ def cross_validation(
         mask = np.ones(n, dtype=bool)
         mask[part] = False
         z_train, scale_new = scale_fn(rows[mask])
-        _, _, vt = np.linalg.svd(z_train - z_train.mean(axis=0), full_matrices=False)
-        press += ekf_press(vt[:kmax].T, scale_new(rows[part]), kmax)
+        press += ekf_press(leading_loadings(z_train - z_train.mean(axis=0), kmax), scale_new(rows[part]), kmax)
     k = int(np.argmin(press))
     evidence = {"method": "row-wise k-fold, element-wise prediction (ekf)", "folds": folds, "press": press}
     if sample_note:

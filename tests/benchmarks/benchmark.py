@@ -2,9 +2,15 @@
 
     python tests/benchmarks/benchmark.py [SECTION ...]
 
-Sections (default: all that exist):
-    parallel    Horn's parallel analysis, 1000 Wishart draws at p = 100, one core
-                (target: under 2 s)
+Sections (default: all):
+    parallel    Horn's parallel analysis, 1000 Wishart draws at p = 100, one core (target under 2 s)
+    memory      1,000,000 x 100 Parquet in memory, audit --no-pdf against the floor (read, one
+                correlation matrix, one eigendecomposition, one inverse): target ratio <= 2
+    stream      a 3,000,000 x 50 CSV streamed: peak RSS (target <= 500 MB) and throughput
+                against pyarrow's raw CSV read (target >= 70%)
+    hand        100,000 x 50 against the hand-assembled way (statsmodels VIF one column at a
+                time, scikit-learn PCA, 100 simulated sets for parallel analysis): target >= 20x
+    wide        300 x 20,000: target under 20 s
 
 Each section prints its figures and its target; the figures are wall-clock seconds from
 time.perf_counter, best of a few repeats. BLAS is held to one thread for the one-core figures.
@@ -45,7 +51,134 @@ def section_parallel() -> list[tuple[str, str, str]]:
     return [("parallel analysis, 1000 draws, p = 100, n = 1000", f"{seconds:.2f} s", "under 2 s")]
 
 
-SECTIONS = {"parallel": section_parallel}
+def _peak_rss_mb(pid_cmd: list[str]) -> tuple[float, float]:
+    """Run a command, return (seconds, peak RSS of the child in MB) from resource usage."""
+    import subprocess
+
+    start = time.perf_counter()
+    child = subprocess.Popen(pid_cmd, stdout=subprocess.DEVNULL)
+    _, status, usage = os.wait4(child.pid, 0)  # this child's own peak, not the largest so far
+    seconds = time.perf_counter() - start
+    if status != 0:
+        raise RuntimeError(f"{' '.join(pid_cmd)} failed with status {status}")
+    return seconds, usage.ru_maxrss / 1024
+
+
+def _factor_table(n: int, p: int, seed: int = 0) -> np.ndarray:
+    rng = np.random.default_rng(seed)
+    k = max(2, p // 10)
+    f = rng.standard_normal((n, k))
+    load = rng.uniform(0.3, 0.9, (k, p)) * (rng.random((k, p)) < 0.3)
+    return f @ load + rng.standard_normal((n, p))
+
+
+def _audit_cmd(data: Path, out: Path, *extra: str) -> list[str]:
+    return [sys.executable, "-m", "planner", "audit", str(data), "--out", str(out), "--no-pdf", "--force", "--quiet", *extra]
+
+
+def section_memory() -> list[tuple[str, str, str]]:
+    """In memory, 1,000,000 x 100 Parquet: audit --no-pdf against the floor."""
+    import tempfile
+
+    import pandas as pd
+    import pyarrow.parquet as pq
+
+    folder = Path(tempfile.mkdtemp(prefix="axl-bench-"))
+    data = folder / "wide_rows.parquet"
+    x = _factor_table(1_000_000, 100)
+    pd.DataFrame(x, columns=[f"f{j:03d}" for j in range(100)]).to_parquet(data)
+    del x
+
+    def floor():
+        table = pq.read_table(data).to_pandas().to_numpy()
+        r = np.corrcoef(table, rowvar=False)
+        np.linalg.eigh(r)
+        np.linalg.inv(r)
+
+    floor_s = best_of(floor, 2)
+    audit_s, _ = _peak_rss_mb(_audit_cmd(data, folder / "out", "--engine", "memory"))
+    return [
+        ("in memory 1,000,000 x 100 Parquet: floor (read, corr, eigh, inv)", f"{floor_s:.1f} s", ""),
+        ("in memory 1,000,000 x 100 Parquet: audit --no-pdf", f"{audit_s:.1f} s", f"ratio {audit_s / floor_s:.1f} (target <= 2)"),
+    ]
+
+
+def section_stream() -> list[tuple[str, str, str]]:
+    """Streaming, a 3,000,000 x 50 CSV: peak RSS and throughput against pyarrow's raw read."""
+    import tempfile
+
+    import pyarrow.csv as pacsv
+
+    folder = Path(tempfile.mkdtemp(prefix="axl-bench-"))
+    data = folder / "long.csv"
+    with open(data, "w") as handle:
+        handle.write(",".join(f"f{j:02d}" for j in range(50)) + "\n")
+        for block in range(30):
+            x = _factor_table(100_000, 50, seed=block)
+            np.savetxt(handle, x, delimiter=",", fmt="%.6g")
+    size_mb = data.stat().st_size / 1e6
+
+    def raw():
+        reader = pacsv.open_csv(data, read_options=pacsv.ReadOptions(block_size=1 << 24))
+        for _ in reader:
+            pass
+
+    raw_s = best_of(raw, 1)
+    audit_s, peak = _peak_rss_mb(_audit_cmd(data, folder / "out", "--engine", "stream"))
+    return [
+        (f"stream 3,000,000 x 50 CSV ({size_mb:.0f} MB): pyarrow raw read", f"{raw_s:.1f} s", ""),
+        ("stream 3,000,000 x 50 CSV: audit --no-pdf", f"{audit_s:.1f} s", f"throughput {raw_s / audit_s:.0%} of raw (target >= 70%)"),
+        ("stream 3,000,000 x 50 CSV: peak RSS of the audit", f"{peak:.0f} MB", "target <= 500 MB"),
+    ]
+
+
+def section_hand() -> list[tuple[str, str, str]]:
+    """Against the hand-assembled way at 100,000 x 50."""
+    import tempfile
+
+    import pandas as pd
+    from sklearn.decomposition import PCA
+    from statsmodels.stats.outliers_influence import variance_inflation_factor
+    from statsmodels.tools import add_constant
+
+    folder = Path(tempfile.mkdtemp(prefix="axl-bench-"))
+    x = _factor_table(100_000, 50)
+    data = folder / "mid.parquet"
+    pd.DataFrame(x, columns=[f"f{j:02d}" for j in range(50)]).to_parquet(data)
+
+    def by_hand():
+        table = pd.read_parquet(data).to_numpy()
+        design = add_constant(table)
+        [variance_inflation_factor(design, j) for j in range(1, design.shape[1])]
+        z = (table - table.mean(0)) / table.std(0, ddof=1)
+        PCA().fit(z)
+        rng = np.random.default_rng(0)
+        for _ in range(100):
+            np.linalg.eigvalsh(np.corrcoef(rng.standard_normal(table.shape), rowvar=False))
+
+    hand_s = best_of(by_hand, 1)
+    audit_s, _ = _peak_rss_mb(_audit_cmd(data, folder / "out", "--engine", "memory"))
+    return [
+        ("100,000 x 50 by hand (statsmodels VIF, sklearn PCA, 100 simulated sets)", f"{hand_s:.1f} s", ""),
+        ("100,000 x 50 audit --no-pdf", f"{audit_s:.1f} s", f"{hand_s / audit_s:.1f}x faster (target >= 20x)"),
+    ]
+
+
+def section_wide() -> list[tuple[str, str, str]]:
+    """Wide: 300 x 20,000."""
+    import tempfile
+
+    import pandas as pd
+
+    folder = Path(tempfile.mkdtemp(prefix="axl-bench-"))
+    data = folder / "wide.parquet"
+    pd.DataFrame(_factor_table(300, 20_000), columns=[f"f{j:05d}" for j in range(20_000)]).to_parquet(data)
+    audit_s, peak = _peak_rss_mb(_audit_cmd(data, folder / "out", "--engine", "memory"))
+    return [("wide 300 x 20,000 audit --no-pdf", f"{audit_s:.1f} s", "target under 20 s")]
+
+
+SECTIONS = {"parallel": section_parallel, "memory": section_memory, "stream": section_stream,
+            "hand": section_hand, "wide": section_wide}
 
 
 def main() -> int:
