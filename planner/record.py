@@ -41,14 +41,23 @@ def new_record_id(now: datetime | None = None) -> str:
 
 def jsonable(value):
     """Convert numpy and dataclass values to plain JSON values; non-finite floats to None."""
-    if dataclasses.is_dataclass(value) and not isinstance(value, type):
-        return jsonable(dataclasses.asdict(value))
-    if isinstance(value, dict):
+    kind = type(value)
+    if kind is float:
+        return value if math.isfinite(value) else None
+    if value is None or kind is str or kind is bool or kind is int:
+        return value
+    if kind is dict:
         return {str(k): jsonable(v) for k, v in value.items()}
-    if isinstance(value, (list, tuple)):
+    if kind is list or kind is tuple:
         return [jsonable(v) for v in value]
     if isinstance(value, np.ndarray):
+        if value.dtype.kind == "f":
+            values = value.astype(np.float64)
+            if np.isfinite(values).all():
+                return values.tolist()
         return [jsonable(v) for v in value.tolist()]
+    if dataclasses.is_dataclass(value) and not isinstance(value, type):
+        return jsonable({f.name: getattr(value, f.name) for f in dataclasses.fields(value)})
     if isinstance(value, (bool, np.bool_)):
         return bool(value)
     if isinstance(value, (int, np.integer)):
@@ -56,8 +65,12 @@ def jsonable(value):
     if isinstance(value, (float, np.floating)):
         value = float(value)
         return value if math.isfinite(value) else None
-    if value is None or isinstance(value, str):
-        return value
+    if isinstance(value, str):
+        return str(value)
+    if isinstance(value, dict):
+        return {str(k): jsonable(v) for k, v in value.items()}
+    if isinstance(value, (list, tuple)):
+        return [jsonable(v) for v in value]
     raise TypeError(f"not JSON-serialisable: {type(value).__name__}")
 
 

@@ -269,8 +269,9 @@ def component_evidence(x: np.ndarray, scaling: str = "standardize", seed: int = 
 
 
 # ---------------------------------------------------------------------- record sections
-#: Loadings of every component are kept up to this many features; beyond, the first 100.
+#: Loadings of every component are kept up to this many features; beyond, the first 50.
 MAX_FULL_LOADINGS = 1000
+WIDE_KEPT_LOADINGS = 50
 
 
 def _rule_entry(r: RuleResult) -> dict:
@@ -284,7 +285,7 @@ def _rule_entry(r: RuleResult) -> dict:
 def decomposition_section(ev: ComponentEvidence, columns: list[str]) -> dict:
     d, sc = ev.decomposition, ev.scaling
     q = d.loadings.shape[1]
-    keep = q if len(columns) <= MAX_FULL_LOADINGS else min(q, 100)
+    keep = q if len(columns) <= MAX_FULL_LOADINGS else min(q, WIDE_KEPT_LOADINGS)
     section = {
         "scaling": {"method": sc.method, "requested": sc.requested, "reasons": list(sc.reasons)},
         "matrix": {

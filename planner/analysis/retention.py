@@ -148,7 +148,7 @@ def scree_elbow(eigenvalues: np.ndarray, null_mean: np.ndarray | None) -> RuleRe
 # ---------------------------------------------------------------------- parallel analysis
 def wishart_null_eigenvalues(
     p: int, dof: int, draws: int, rng: np.random.Generator, correlation: bool, variances: np.ndarray | None = None,
-    batch: int = 64,
+    batch: int = 16,
 ) -> np.ndarray:
     """Eigenvalues (descending) of null matrices W / dof, W ~ Wishart(dof, I_p).
 
