@@ -26,6 +26,8 @@ MISSING_SPELLINGS = frozenset(
     {"", "na", "n/a", "nan", "null", "none", "-", "--", "?", ".", "#n/a", "missing", "nil"}
 )
 MISSING_POLICIES = ("listwise", "mean", "fail")
+#: Values beyond this magnitude are refused: their squares overflow double precision.
+MAX_MAGNITUDE = 1e150
 #: How many rows a usable table needs at the least.
 MIN_ROWS = 3
 #: Distinct integers count as an identifier by their order alone from this many rows on.
@@ -566,7 +568,8 @@ def load(
             continue
         kept.append(col)
 
-    # Infinity is an error, not a value (DESIGN.md, intake).
+    # Infinity is an error, not a value (DESIGN.md, intake); so is a value whose square
+    # overflows, since every second moment would be infinite.
     for col in kept:
         v = typed[col].values
         bad = np.isinf(v)
@@ -575,6 +578,13 @@ def load(
             raise InputError(
                 f"column {col!r} holds an infinite value at data row {row}",
                 "replace it with a finite number or leave the cell empty",
+            )
+        huge = np.abs(np.nan_to_num(v)) > MAX_MAGNITUDE
+        if huge.any():
+            row = int(np.argmax(huge)) + 1
+            raise InputError(
+                f"column {col!r} holds {v[row - 1]:.3g} at data row {row}, too large to square in floating point",
+                f"rescale the column (values up to {MAX_MAGNITUDE:.0e} in magnitude are read)",
             )
 
     # Constant columns (among the non-missing values).

@@ -178,6 +178,11 @@ def first_pass(path, kind, head, options, quiet: bool, full: bool) -> StreamPass
                 r, c = np.argwhere(np.isinf(x))[0]
                 raise InputError(f"column {features[c]!r} holds an infinite value at data row {int(numbers[r])}",
                                  "replace it with a finite number or leave the cell empty")
+            huge = np.abs(np.nan_to_num(x)) > intake_mod.MAX_MAGNITUDE
+            if huge.any():
+                r, c = np.argwhere(huge)[0]
+                raise InputError(f"column {features[c]!r} holds {x[r, c]:.3g} at data row {int(numbers[r])}, too large to square in floating point",
+                                 f"rescale the column (values up to {intake_mod.MAX_MAGNITUDE:.0e} in magnitude are read)")
             holes = np.isnan(x)
             if holes.any() and options.missing == "fail":
                 r, c = np.argwhere(holes)[0]
