@@ -24,7 +24,7 @@ class _Parser(argparse.ArgumentParser):
     """argparse that reports usage errors as InputError (exit 2, one line)."""
 
     def error(self, message):  # noqa: D401 - argparse API
-        raise InputError(f"{message} (axisledger {self.prog.split()[-1]})", f"see: {self.prog} --help")
+        raise InputError(f"{message} ({self.prog})", f"see: {self.prog} --help")
 
 
 def _components(value: str):

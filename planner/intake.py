@@ -457,6 +457,8 @@ def read_table(source, *, sheet: str | None = None):
     suffix = path.suffix.lower()
     if suffix in (".xlsx", ".xlsm") and kind != "zip":
         what = "text" if kind == "text" else kind
+        if kind == "text" and b"\x00" in raw[:65536]:
+            what = "binary content"
         raise InputError(
             f"{name} is named {suffix} but holds {what}, not a workbook",
             "rename it to match its content (for a CSV: .csv)",
