@@ -167,8 +167,8 @@ def anderson_intervals(d: Decomposition, level: float = 0.95) -> Intervals:
     cum = np.cumsum(values) / total
     sq = values**2
     head = np.cumsum(sq)
-    tail = np.sum(sq) - head
-    se = np.sqrt(2.0 / (d.n - 1) * ((1 - cum) ** 2 * head + cum**2 * tail)) / total
+    tail = np.clip(np.sum(sq) - head, 0.0, None)  # rounding can leave a tiny negative
+    se = np.sqrt(np.clip(2.0 / (d.n - 1) * ((1 - cum) ** 2 * head + cum**2 * tail), 0.0, None)) / total
     return Intervals(
         method="asymptotic (Anderson 1963)",
         level=level,
