@@ -686,7 +686,7 @@ def load(
                 "give a table with two or more varying numeric columns",
             )
 
-    binary = [c for j, c in enumerate(kept) if set(np.unique(matrix[:, j]).tolist()) <= {0.0, 1.0}]
+    binary = [c for j, c in enumerate(kept) if np.all((matrix[:, j] == 0.0) | (matrix[:, j] == 1.0))]
     for c in binary:
         notes.append(note("binary_column", "caution", f"column {c!r} is binary (0/1); PCA treats it as continuous, read its loadings with care", c))
     order = {c: i for i, c in enumerate(header)}

@@ -251,9 +251,22 @@ class TopRows:
 
 
 def cached_chunks(cache_path: str, p: int, rows: int):
-    data = np.memmap(cache_path, dtype=np.float64, mode="r", shape=(rows, p)) if rows else np.empty((0, p))
-    for start in range(0, rows, CHUNK_ROWS):
-        yield start, np.asarray(data[start : start + CHUNK_ROWS])
+    """The cached rows in chunks, read with plain file reads (a memory map would count the
+    whole cache in the resident set)."""
+    with open(cache_path, "rb") as handle:
+        for start in range(0, rows, CHUNK_ROWS):
+            count = min(CHUNK_ROWS, rows - start)
+            yield start, np.fromfile(handle, dtype=np.float64, count=count * p).reshape(count, p)
+
+
+def cached_rows(cache_path: str, p: int, indices) -> dict[int, np.ndarray]:
+    """Some cached rows by index."""
+    found = {}
+    with open(cache_path, "rb") as handle:
+        for i in sorted(int(j) for j in indices):
+            handle.seek(i * p * 8)
+            found[i] = np.fromfile(handle, dtype=np.float64, count=p)
+    return found
 
 
 def read_labels(label_path: str | None, indices: set[int]) -> dict[int, str]:
@@ -309,7 +322,7 @@ def run_stream_audit(path, options, quiet: bool = False):
     rows_dropped = sp.rows_read - sp.rows_used
     diagnostics = run_diagnostics(moments, None, [], np.empty(0), thresholds, rows_dropped=rows_dropped, rows_read=sp.rows_read)
 
-    numbers = np.memmap(sp.number_cache_path, dtype=np.int64, mode="r", shape=(sp.rows_used,))
+    numbers = np.fromfile(sp.number_cache_path, dtype=np.int64)  # 8 bytes a row
     # Pass 2a: the Mahalanobis screen over every row.
     spec = diagnostics.spectrum
     keep = spec.values > spec.tolerance
@@ -358,12 +371,10 @@ def run_stream_audit(path, options, quiet: bool = False):
         picked = [i for i in range(len(chunk)) if start + i in chart_pick]
         chart_spe.extend(fig.spe[picked].tolist())
         chart_t2.extend(fig.t2[picked].tolist())
-    cache = np.memmap(sp.cache_path, dtype=np.float64, mode="r", shape=(sp.rows_used, p))
     spe_v, spe_i = top_spe.ordered()
     t2_v, t2_i = top_t2.ordered()
     labels = read_labels(sp.label_cache_path, set(int(i) for i in np.concatenate([spe_i, t2_i])))
-    worst_rows = np.asarray(cache[np.sort(spe_i)])
-    by_index = dict(zip(np.sort(spe_i).tolist(), worst_rows))
+    by_index = cached_rows(sp.cache_path, p, spe_i)
     disc["rows_over_spe_limit"] = counts["spe"]
     disc["rows_over_t2_limit"] = counts["t2"]
     disc["rows_over_spe_limit_99"] = counts["spe99"]
