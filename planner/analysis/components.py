@@ -10,7 +10,7 @@ from ..moments import Moments
 from . import retention
 from .decomposition import Decomposition, Intervals, anderson_intervals, bootstrap_intervals, decompose
 from .retention import RuleResult
-from .scaling import Scaling, make_scaling, robust_spread
+from .scaling import Scaling, make_scaling, scale_for
 
 #: Row resampling (bootstrap, cross-validation) runs on at most this many rows, drawn with
 #: the seed; the record says so when it happens.
@@ -45,16 +45,8 @@ def matrix_of_rows(method: str):
         sd = rows.std(axis=0, ddof=1)
         if np.any(sd <= 0):
             return None
-        cov = np.cov(rows, rowvar=False)
-        if method == "standardize":
-            scale = sd
-        elif method == "center":
-            return cov
-        elif method == "pareto":
-            scale = np.sqrt(sd)
-        else:
-            scale = robust_spread(rows)
-        return cov / np.outer(scale, scale)
+        scale = scale_for(method, sd, rows)
+        return np.cov(rows, rowvar=False) / np.outer(scale, scale)
 
     return make
 
@@ -65,15 +57,7 @@ def scaler_of_rows(method: str):
     def fit(train: np.ndarray):
         center = train.mean(axis=0)
         sd = train.std(axis=0, ddof=1)
-        sd = np.where(sd > 0, sd, 1.0)
-        if method == "standardize":
-            scale = sd
-        elif method == "center":
-            scale = np.ones_like(sd)
-        elif method == "pareto":
-            scale = np.sqrt(sd)
-        else:
-            scale = robust_spread(train)
+        scale = scale_for(method, np.where(sd > 0, sd, 1.0), train)
         return (train - center) / scale, lambda new: (new - center) / scale
 
     return fit
@@ -127,7 +111,7 @@ def evaluate_rules(
         "cumulative_variance": retention.cumulative_variance(ratio, share),
         "scree_elbow": retention.scree_elbow(lam, pa.evidence["null_mean"]),
         "parallel_analysis": pa,
-        "broken_stick": retention.broken_stick(ratio, p),
+        "broken_stick": retention.broken_stick(ratio, p, decomposition.trace),
         "velicer_map": velicer,
         "minka": retention.minka(lam, n, p),
         "gavish_donoho": retention.gavish_donoho(lam, n, p),

@@ -87,10 +87,7 @@ def discarded_section(
     d, sc = ev.decomposition, ev.scaling
     columns = list(moments.columns)
     overall = overall_discarded(d, k, ev.intervals)
-    if not moments.full or moments.p >= moments.n:
-        feature_var = np.var(sc.transform(rows), axis=0, ddof=1)
-    else:
-        feature_var = np.diag(sc.matrix(moments))
+    feature_var = moments.std() ** 2 / sc.scale**2  # variance of each scaled feature
     per = feature_retention(d, k, feature_var, sc.scale, columns, floor)
     residual_eigen = d.eigenvalues[k:]
     limits = {level: spe_limit(residual_eigen, level) for level in (0.95, 0.99)}
@@ -98,6 +95,10 @@ def discarded_section(
         "kept_components": k,
         "variance_fraction": overall.variance_fraction,
         "variance_fraction_interval": {"low": overall.interval_low, "high": overall.interval_high, "method": overall.interval_method},
+        "kept_share_interval": {
+            "low": None if overall.interval_high is None else 1.0 - overall.interval_high,
+            "high": None if overall.interval_low is None else 1.0 - overall.interval_low,
+        },
         "per_feature_retained": per.retained,
         "per_feature_rmse": per.rmse,
         "rmse_units": "the feature's own units; RMSE over the rows (divisor n)",

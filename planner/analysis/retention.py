@@ -164,6 +164,21 @@ def wishart_null_eigenvalues(
     Royal Society of Edinburgh 53, 260-283 (the decomposition).
     """
     out = np.empty((draws, p))
+    for start, lower in bartlett_factors(p, dof, draws, rng, batch):
+        w = lower @ np.transpose(lower, (0, 2, 1)) / dof
+        if correlation:
+            d = 1.0 / np.sqrt(np.diagonal(w, axis1=1, axis2=2))
+            w = w * d[:, :, None] * d[:, None, :]
+        elif variances is not None:
+            s = np.sqrt(variances)
+            w = w * s[None, :, None] * s[None, None, :]
+        out[start : start + len(lower)] = np.linalg.eigvalsh(w)[:, ::-1]
+    return out
+
+
+def bartlett_factors(p: int, dof: int, draws: int, rng: np.random.Generator, batch: int = 16):
+    """Batches of Bartlett factors L (W = L L^T ~ Wishart(dof, I_p)): L_ii = sqrt(chi2(dof -
+    i + 1)), standard normal below the diagonal. Yields (index of the first draw, L batch)."""
     tril = np.tril_indices(p, -1)
     diag = np.arange(p)
     dfs = dof - np.arange(p)  # chi2 degrees of freedom dof, dof - 1, ..., dof - p + 1
@@ -172,15 +187,7 @@ def wishart_null_eigenvalues(
         lower = np.zeros((b, p, p))
         lower[:, diag, diag] = np.sqrt(rng.chisquare(dfs, size=(b, p)))
         lower[:, tril[0], tril[1]] = rng.standard_normal((b, len(tril[0])))
-        w = lower @ np.transpose(lower, (0, 2, 1)) / dof
-        if correlation:
-            d = 1.0 / np.sqrt(np.diagonal(w, axis1=1, axis2=2))
-            w = w * d[:, :, None] * d[:, None, :]
-        elif variances is not None:
-            s = np.sqrt(variances)
-            w = w * s[None, :, None] * s[None, None, :]
-        out[start : start + b] = np.linalg.eigvalsh(w)[:, ::-1]
-    return out
+        yield start, lower
 
 
 def parallel_analysis(
@@ -264,8 +271,9 @@ def broken_stick_expectations(p: int) -> np.ndarray:
     return np.cumsum(inv[::-1])[::-1] / p
 
 
-def broken_stick(explained_ratio: np.ndarray, p: int) -> RuleResult:
-    """Keep components while their share exceeds the broken-stick expectation.
+def broken_stick(explained_ratio: np.ndarray, p: int, total: float = 1.0) -> RuleResult:
+    """Keep components while their share exceeds the broken-stick expectation (the evidence
+    also gives the expectation on the eigenvalue scale, ``total`` times the share).
 
     References
     ----------
@@ -276,7 +284,7 @@ def broken_stick(explained_ratio: np.ndarray, p: int) -> RuleResult:
     """
     b = broken_stick_expectations(p)[: len(explained_ratio)]
     k = _leading_run(np.asarray(explained_ratio) > b)
-    return RuleResult("broken_stick", k, "Frontier (1976); Jackson (1993)", {"expected_share": b})
+    return RuleResult("broken_stick", k, "Frontier (1976); Jackson (1993)", {"expected_share": b, "expected_eigenvalue": b * total})
 
 
 # ---------------------------------------------------------------------- Velicer's MAP
@@ -581,55 +589,11 @@ def revised_parallel_analysis(
 
 def _wishart_eigen_k(chol: np.ndarray, dof: int, draws: int, rng: np.random.Generator, index: int, batch: int = 64) -> np.ndarray:
     """The ``index``-th largest eigenvalue of correlation matrices of Wishart(dof, C C^T) draws."""
-    p = chol.shape[0]
     out = np.empty(draws)
-    tril = np.tril_indices(p, -1)
-    diag = np.arange(p)
-    dfs = dof - np.arange(p)
-    for start in range(0, draws, batch):
-        b = min(batch, draws - start)
-        lower = np.zeros((b, p, p))
-        lower[:, diag, diag] = np.sqrt(rng.chisquare(dfs, size=(b, p)))
-        lower[:, tril[0], tril[1]] = rng.standard_normal((b, len(tril[0])))
+    for start, lower in bartlett_factors(chol.shape[0], dof, draws, rng, batch):
         g = chol[None, :, :] @ lower
         w = g @ np.transpose(g, (0, 2, 1))
         d = 1.0 / np.sqrt(np.diagonal(w, axis1=1, axis2=2))
         w = w * d[:, :, None] * d[:, None, :]
-        out[start : start + b] = np.linalg.eigvalsh(w)[:, ::-1][:, index]
+        out[start : start + len(lower)] = np.linalg.eigvalsh(w)[:, ::-1][:, index]
     return out
-
-
-def marchenko_pastur_null(q: int, p: int, n: int, variance: float = 1.0, grid: int = 4001) -> tuple[np.ndarray, np.ndarray]:
-    """Null eigenvalues for large tables without simulation (Marchenko and Pastur 1967).
-
-    With ratio gamma = p / (n - 1) (p <= n - 1; for p >= n the dual is used), the k-th
-    largest null eigenvalue is taken as the MP quantile at 1 - (k - 0.5) / p (the mean
-    evidence), and its 95th percentile adds Tracy-Widom's fluctuation of the largest
-    eigenvalue, 0.9793 sigma / (n - 1) with sigma = (sqrt(n - 1) + sqrt(p))
-    (1 / sqrt(n - 1) + 1 / sqrt(p))^(1/3) (Johnstone 2001; the 0.9793 quantile of TW1 is
-    from memory).
-
-    References
-    ----------
-    V. A. Marchenko and L. A. Pastur (1967), "Distribution of eigenvalues for some sets of
-    random matrices", Mathematics of the USSR-Sbornik 1(4), 457-483.
-    I. M. Johnstone (2001), "On the distribution of the largest eigenvalue in principal
-    components analysis", Annals of Statistics 29(2), 295-327.
-    """
-    m = n - 1
-    small, large = min(p, m), max(p, m)
-    gamma = small / large
-    lo, hi = (1 - math.sqrt(gamma)) ** 2, (1 + math.sqrt(gamma)) ** 2
-    t = np.linspace(lo, hi, grid)
-    dens = np.sqrt(np.clip((hi - t) * (t - lo), 0, None)) / (2 * math.pi * gamma * np.maximum(t, 1e-300))
-    cdf = np.concatenate([[0.0], np.cumsum((dens[1:] + dens[:-1]) / 2 * np.diff(t))])
-    cdf /= cdf[-1]
-    levels = 1.0 - (np.arange(1, q + 1) - 0.5) / small
-    quantiles = np.interp(np.clip(levels, 0, 1), cdf, t)
-    # Eigenvalues of the p x p covariance: scale by large / m (the dual for p > m).
-    mean = quantiles * (large / m) * variance
-    sigma = (math.sqrt(m) + math.sqrt(p)) * (1 / math.sqrt(m) + 1 / math.sqrt(p)) ** (1 / 3)
-    upper = mean + 0.9793 * sigma / m * variance
-    mean[small:] = 0.0
-    upper[small:] = 0.0
-    return upper, mean

@@ -70,11 +70,11 @@ class Scaling:
 
     def matrix(self, moments: Moments) -> np.ndarray:
         """Covariance (n - 1) of the scaled features, from the Moments."""
-        cov = moments.covariance()
-        inv = 1.0 / self.scale
-        m = cov * np.outer(inv, inv)
         if self.method == "standardize":
             m = moments.correlation()
+        else:
+            inv = 1.0 / self.scale
+            m = moments.covariance() * np.outer(inv, inv)
         return (m + m.T) / 2.0
 
 
@@ -94,23 +94,26 @@ def robust_spread(rows: np.ndarray) -> np.ndarray:
     return np.where(spread > 0, spread, np.std(rows, axis=0, ddof=1))
 
 
-def make_scaling(method: str, moments: Moments, rows: np.ndarray | None, reasons: list[str], requested: str) -> Scaling:
-    """Center and scale for ``method`` (``robust`` needs the rows)."""
-    sd = moments.std()
-    mean = moments.mean.copy()
+def scale_for(method: str, sd: np.ndarray, rows: np.ndarray | None) -> np.ndarray:
+    """The per-feature scale of ``method`` from the standard deviations (and, for robust
+    scaling, the rows): the one definition every refit (bootstrap, folds) uses too."""
     if method == "standardize":
-        scale = sd
-    elif method == "center":
-        scale = np.ones_like(sd)
-    elif method == "pareto":
-        scale = np.sqrt(sd)
-    elif method == "robust":
+        return sd
+    if method == "center":
+        return np.ones_like(sd)
+    if method == "pareto":
+        return np.sqrt(sd)
+    if method == "robust":
         if rows is None:
             raise ValueError("robust scaling needs the rows")
-        scale = robust_spread(rows)
-    else:
-        raise ValueError(f"unknown scaling {method!r}")
-    return Scaling(method=method, center=mean, scale=scale, reasons=list(reasons), requested=requested)
+        return robust_spread(rows)
+    raise ValueError(f"unknown scaling {method!r}")
+
+
+def make_scaling(method: str, moments: Moments, rows: np.ndarray | None, reasons: list[str], requested: str) -> Scaling:
+    """Center and scale for ``method`` (``robust`` needs the rows)."""
+    scale = scale_for(method, moments.std(), rows)
+    return Scaling(method=method, center=moments.mean.copy(), scale=scale, reasons=list(reasons), requested=requested)
 
 
 @dataclass

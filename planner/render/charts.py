@@ -86,8 +86,8 @@ def charts_for(record: dict) -> dict:
         iv = dec.get("intervals") or {}
         chosen = comp["chosen"]
         charts["scree"] = scree_chart(
-            dec["eigenvalues"], pa.get("null_percentile"), pa.get("null_mean"), bs.get("expected_share"),
-            dec["trace"], chosen, iv.get("eigenvalue_low"), iv.get("eigenvalue_high"),
+            dec["eigenvalues"], pa.get("null_percentile"), pa.get("null_mean"), bs.get("expected_eigenvalue"),
+            chosen, iv.get("eigenvalue_low"), iv.get("eigenvalue_high"),
         )
         share = rules.get("cumulative_variance", {}).get("share", 0.8)
         charts["cumulative"] = cumulative_chart(dec["cumulative_ratio"], share, chosen, iv.get("cumulative_low"), iv.get("cumulative_high"))
@@ -105,7 +105,7 @@ def charts_for(record: dict) -> dict:
     return charts
 
 
-def scree_chart(eigenvalues, null_percentile, null_mean, broken_stick_share, trace, chosen, low=None, high=None) -> str:
+def scree_chart(eigenvalues, null_percentile, null_mean, broken_stick, chosen, low=None, high=None) -> str:
     """Eigenvalues with the parallel-analysis threshold and the broken-stick curve."""
     import numpy as np
 
@@ -123,8 +123,8 @@ def scree_chart(eigenvalues, null_percentile, null_mean, broken_stick_share, tra
         ax.plot(x, np.asarray(null_percentile[:q], float), "--", color=OCHRE, linewidth=1.1, label="parallel analysis, 95th percentile")
     if null_mean is not None:
         ax.plot(x, np.asarray(null_mean[:q], float), ":", color=OCHRE, linewidth=1.0, label="parallel analysis, mean")
-    if broken_stick_share is not None:
-        ax.plot(x, np.asarray(broken_stick_share[:q], float) * trace, "-.", color=SLATE, linewidth=1.0, label="broken stick")
+    if broken_stick is not None:
+        ax.plot(x, np.asarray(broken_stick[:q], float), "-.", color=SLATE, linewidth=1.0, label="broken stick")
     ax.set_xlabel("component")
     ax.set_ylabel("eigenvalue")
     ax.set_xticks(x if q <= 20 else x[::2])

@@ -28,11 +28,9 @@ def _offline_fetcher():
     class OfflineFetcher(URLFetcher):
         def __init__(self):
             super().__init__(allowed_protocols=("data",), allow_redirects=False, fail_on_errors=False)
-            self.refused: list[str] = []
 
         def fetch(self, url, headers=None):
             if not url.startswith("data:"):
-                self.refused.append(url)
                 raise FetchRefused(f"axisledger renders offline and does not fetch {url[:80]!r}")
             return super().fetch(url, headers)
 
