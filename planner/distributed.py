@@ -91,7 +91,7 @@ def run_dask_audit(source, options):
     """The whole audit of a set of parts with Dask (see the module docstring)."""
     import dask
     import dask.dataframe as dd
-    import scipy.stats
+    from .analysis.distributions import chi2_ppf
 
     from .analysis.components import analyse_components, components_section, decomposition_section
     from .analysis.diagnostics import diagnostics_section, run_diagnostics
@@ -141,7 +141,7 @@ def run_dask_audit(source, options):
         diagnostics = run_diagnostics(moments, None, [], np.empty(0), thresholds, rows_dropped=rows_dropped, rows_read=rows_read)
         spec = diagnostics.spectrum
         df = int((spec.values > spec.tolerance).sum())
-        d2_limit = float(scipy.stats.chi2.ppf(thresholds.outlier_quantile, df))
+        d2_limit = float(chi2_ppf(thresholds.outlier_quantile, df))
         # The scaling and the model come from the Moments and the sample; the rows then pass once.
         diagnostics.outliers = None
         scaling = scaling_for(options.scaling, moments, sample, diagnostics_section(diagnostics), rulebook)

@@ -12,12 +12,13 @@ import csv
 import hashlib
 import io
 import re
+import sys
+import threading
 import zipfile
 from dataclasses import dataclass, field
 from pathlib import Path
 
 import numpy as np
-import pandas as pd
 
 from .errors import InputError
 
@@ -74,8 +75,9 @@ class IntakeResult:
         ``{"column", "reason"}`` for every column set aside.
     data : ndarray (rows_used, p)
         The feature values (imputed where ``missing_policy`` is ``mean``).
-    row_labels : list of str
-        A label for each used row: the identifier's value, else ``row N`` (1-based data row).
+    row_labels : RowLabels
+        A label for each used row: the identifier's value, else ``row N`` (1-based data row);
+        indexable like a list, made lazily.
     row_numbers : ndarray of int
         The 1-based data-row number of each used row in the input.
     """
@@ -88,7 +90,7 @@ class IntakeResult:
     columns_used: list[str]
     excluded: list[dict]
     data: np.ndarray
-    row_labels: list[str]
+    row_labels: RowLabels
     row_numbers: np.ndarray
     id_column: str | None
     target_name: str | None
@@ -132,6 +134,53 @@ class IntakeResult:
         if self.sheet is not None:
             section["sheet"] = self.sheet
         return section
+
+
+class RowLabels:
+    """The label of each used row, made when asked for: the identifier's value, else
+    ``row N`` (N the 1-based data row). A million rows need no million strings.
+
+    ``texts`` holds identifier text, ``numbers`` numeric identifier values (NaN where
+    missing); with neither, rows are named by their number.
+    """
+
+    def __init__(self, row_numbers: np.ndarray, texts: np.ndarray | None = None, numbers: np.ndarray | None = None):
+        self.row_numbers = row_numbers
+        self.texts = texts
+        self.numbers = numbers
+
+    def __len__(self) -> int:
+        return len(self.row_numbers)
+
+    def _one(self, i: int) -> str:
+        if self.texts is not None:
+            return str(self.texts[i])
+        if self.numbers is not None:
+            x = self.numbers[i]
+            if np.isnan(x):
+                return f"row {int(self.row_numbers[i])}"
+            return str(int(x)) if np.isfinite(x) and x == int(x) else repr(float(x))
+        return f"row {int(self.row_numbers[i])}"
+
+    def __getitem__(self, index):
+        if isinstance(index, (int, np.integer)):
+            return self._one(int(index))
+        if isinstance(index, slice) or isinstance(index, np.ndarray):
+            return RowLabels(
+                self.row_numbers[index],
+                None if self.texts is None else self.texts[index],
+                None if self.numbers is None else self.numbers[index],
+            )
+        raise TypeError(f"row labels are indexed by an integer, a slice or an array, not {type(index).__name__}")
+
+    def __iter__(self):
+        return (self._one(i) for i in range(len(self)))
+
+    def __eq__(self, other) -> bool:
+        return list(self) == list(other)
+
+    def tolist(self) -> list[str]:
+        return list(self)
 
 
 def note(code: str, severity: str, message: str, subject: str | None = None) -> dict:
@@ -225,12 +274,129 @@ def detect_decimal(cells: list[str], delimiter: str) -> str:
     return "," if commas + thousands_point > points else "."
 
 
-def read_text_table(raw: bytes, name: str) -> tuple[list[str], pd.DataFrame, TextFormat, list[dict]]:
-    """Parse a delimited text file into a header and a frame of strings."""
-    text, encoding, notes = decode_text(raw, name)
-    if not text.strip():
-        raise InputError(f"{name} is empty", "give a file with a header row and data rows")
-    delimiter = detect_delimiter(text)
+def _pandas():
+    """pandas, imported when a column of cells needs it (about 0.6 s of start-up saved
+    for Parquet and clean CSV files)."""
+    import pandas as pd
+
+    return pd
+
+
+def _frame_columns(frame) -> list:
+    """The columns of a frame of cells, in order, as pandas Series."""
+    return [frame.iloc[:, j] for j in range(frame.shape[1])]
+
+
+#: Cells that pyarrow may read as missing in a numeric column: the spellings of
+#: MISSING_SPELLINGS as written, in capitals and capitalised. Anything else that is not a
+#: number makes the whole column text, which the text rules below then read.
+_ARROW_NULLS = sorted({v for s in MISSING_SPELLINGS for v in (s, s.upper(), s.capitalize())})
+
+
+def _sample_cells(text: str, delimiter: str, rows: int = 500) -> list[str]:
+    """The stripped cells of the first ``rows`` data rows (header excluded)."""
+    reader = csv.reader(io.StringIO(text), delimiter=delimiter)
+    cells: list[str] = []
+    try:
+        next(reader, None)
+        for i, row in enumerate(reader):
+            if i >= rows:
+                break
+            cells.extend(c.strip() for c in row)
+    except csv.Error:
+        pass
+    return cells
+
+
+def _read_text_arrow(body: bytes, delimiter: str):
+    """Parse UTF-8 delimited text with pyarrow: numeric columns come back as float arrays
+    (correctly rounded, multi-threaded), every other column as its cells verbatim. Returns
+    None when pyarrow refuses the file (ragged rows, for example); the caller then reads it
+    with the more lenient text reader."""
+    import pyarrow as pa
+    import pyarrow.csv as pacsv
+
+    parse = pacsv.ParseOptions(delimiter=delimiter, newlines_in_values=b'"' in body, ignore_empty_lines=True)
+
+    def read(text_columns: dict | None = None):
+        return pacsv.read_csv(
+            pa.py_buffer(body),
+            read_options=pacsv.ReadOptions(use_threads=True),
+            parse_options=parse,
+            convert_options=pacsv.ConvertOptions(
+                null_values=_ARROW_NULLS, true_values=[], false_values=[], strings_can_be_null=False,
+                column_types=text_columns,
+            ),
+        )
+
+    try:
+        table = read()
+        header = [str(c) for c in table.column_names]
+        other = [c for c, f in zip(header, table.schema) if not (_arrow_numeric(f.type) or pa.types.is_string(f.type))]
+        if other:  # dates and the like: read those columns again as text, the text rules decide
+            if len(set(header)) != len(header):
+                return None
+            table = read({c: pa.string() for c in other})
+    except (pa.ArrowInvalid, pa.ArrowTypeError, pa.ArrowNotImplementedError, UnicodeDecodeError):
+        return None
+    return [h.strip() for h in header], _arrow_columns(table)
+
+
+def _arrow_numeric(kind) -> bool:
+    import pyarrow as pa
+
+    t = pa.types
+    return t.is_integer(kind) or t.is_floating(kind) or t.is_decimal(kind) or t.is_boolean(kind) or t.is_null(kind)
+
+
+def _arrow_columns(table) -> list:
+    """The columns of an Arrow table for :func:`type_column`: numeric ones as float64 views
+    (NaN for missing) into one column-major block, filled chunk by chunk straight from
+    Arrow's buffers, so a numeric column is copied once; dates and times as
+    :class:`DateColumn`; anything else as a pandas Series of its cells."""
+    import pyarrow as pa
+    import pyarrow.compute as pc
+
+    numeric = [j for j, f in enumerate(table.schema) if _arrow_numeric(f.type)]
+    block = np.empty((table.num_rows, len(numeric)), order="F")
+    out: list = [None] * table.num_columns
+    for slot, j in enumerate(numeric):
+        offset = 0
+        for chunk in table.column(j).chunks:
+            end = offset + len(chunk)
+            if pa.types.is_null(chunk.type):
+                block[offset:end, slot] = np.nan
+            else:
+                as_float = chunk if pa.types.is_float64(chunk.type) else pc.cast(chunk, pa.float64())
+                block[offset:end, slot] = as_float.to_numpy(zero_copy_only=False)
+            offset = end
+        out[j] = block[:, slot]
+    for j in range(table.num_columns):
+        if out[j] is None:
+            column = table.column(j)
+            if pa.types.is_temporal(column.type):
+                out[j] = DateColumn(len(column), int(column.null_count), column.cast(pa.string()).to_pandas())
+            else:
+                out[j] = column.to_pandas()
+    return out
+
+
+@dataclass
+class DateColumn:
+    """A column of dates or times as typed by the reader (never a feature); ``texts`` are
+    its values written out, for row labels."""
+
+    length: int
+    missing: int
+    texts: object = None
+
+    def __len__(self) -> int:
+        return self.length
+
+
+def _read_text_pandas(text: str, name: str, delimiter: str) -> tuple[list[str], list]:
+    """Parse delimited text into a header and columns of cells (strings), with pandas."""
+    pd = _pandas()
     try:
         frame = pd.read_csv(
             io.StringIO(text),
@@ -251,30 +417,41 @@ def read_text_table(raw: bytes, name: str) -> tuple[list[str], pd.DataFrame, Tex
         raise InputError(f"{name} is empty", "give a file with a header row and data rows")
     header = [str(h).strip() for h in frame.iloc[0].tolist()]
     body = frame.iloc[1:].reset_index(drop=True)
-    body.columns = range(body.shape[1])
-    sample_cells = [
-        str(v).strip() for v in body.head(500).to_numpy().ravel().tolist() if isinstance(v, str)
-    ]
-    decimal = detect_decimal(sample_cells, delimiter)
+    return header, _frame_columns(body)
+
+
+def read_text_table(raw: bytes, name: str) -> tuple[list[str], list, TextFormat, list[dict]]:
+    """Parse a delimited text file into a header and its columns (see :func:`read_table`)."""
+    text, encoding, notes = decode_text(raw, name)
+    if not text.strip():
+        raise InputError(f"{name} is empty", "give a file with a header row and data rows")
+    delimiter = detect_delimiter(text)
+    decimal = detect_decimal(_sample_cells(text, delimiter), delimiter)
+    parsed = None
+    if encoding in ("utf-8", "utf-8-sig"):
+        parsed = _read_text_arrow(raw[3:] if encoding == "utf-8-sig" else raw, delimiter)
+    if parsed is None:
+        parsed = _read_text_pandas(text, name, delimiter)
+    header, columns = parsed
     if decimal == ",":
         notes.append(note("decimal_comma", "note", f"{name} uses a decimal comma; values such as '3,14' were read as 3.14"))
-    return header, body, TextFormat(encoding, delimiter, decimal), notes
+    return header, columns, TextFormat(encoding, delimiter, decimal), notes
 
 
-def read_parquet_table(path: Path, name: str) -> tuple[list[str], pd.DataFrame]:
+def read_parquet_table(path: Path, name: str) -> tuple[list[str], list]:
     import pyarrow.parquet as pq
 
     try:
-        table = pq.read_table(path)
+        # The file reader, not read_table's dataset layer, which costs seconds on a table
+        # of many thousands of columns.
+        table = pq.ParquetFile(path, memory_map=True).read()
     except Exception as exc:  # pyarrow raises several types for corrupt files
         raise InputError(f"{name} is not a readable Parquet file ({type(exc).__name__})", "re-export it")
     header = [str(c) for c in table.column_names]
-    frame = table.to_pandas()
-    frame.columns = range(frame.shape[1])
-    return header, frame
+    return header, _arrow_columns(table)
 
 
-def read_excel_table(path: Path, name: str, sheet: str | None) -> tuple[list[str], pd.DataFrame, str]:
+def read_excel_table(path: Path, name: str, sheet: str | None) -> tuple[list[str], list, str]:
     try:
         import openpyxl  # noqa: F401
     except ImportError:
@@ -288,6 +465,7 @@ def read_excel_table(path: Path, name: str, sheet: str | None) -> tuple[list[str
                 raise InputError(f"{name} is a zip archive but not an .xlsx workbook", "give an .xlsx, CSV or Parquet file")
     except zipfile.BadZipFile:
         raise InputError(f"{name} is not a valid .xlsx workbook", "re-save it from the spreadsheet program")
+    pd = _pandas()
     try:
         book = pd.ExcelFile(path, engine="openpyxl")
     except Exception as exc:
@@ -303,8 +481,7 @@ def read_excel_table(path: Path, name: str, sheet: str | None) -> tuple[list[str
         raise InputError(f"sheet {sheet!r} of {name} is empty", "give a sheet with a header row and data rows")
     header = ["" if pd.isna(h) else str(h).strip() for h in frame.iloc[0].tolist()]
     body = frame.iloc[1:].reset_index(drop=True)
-    body.columns = range(body.shape[1])
-    return header, body, sheet
+    return header, _frame_columns(body), sheet
 
 
 # ---------------------------------------------------------------------------- typing
@@ -312,13 +489,14 @@ def read_excel_table(path: Path, name: str, sheet: str | None) -> tuple[list[str
 class TypedColumn:
     name: str
     values: np.ndarray | None  # float64 with NaN for missing, None when not numeric
-    raw: pd.Series
+    raw: object  # the cells as text (a pandas Series); None when the reader typed the column
     missing: int
     bad_examples: list[str]
     n_bad: int
+    dates: bool = False
 
 
-def _to_number(cells: pd.Series, decimal: str) -> tuple[np.ndarray, np.ndarray]:
+def _to_number(cells, decimal: str) -> tuple[np.ndarray, np.ndarray]:
     """Convert strings to floats; returns values and a mask of cells that are not numbers."""
     text = cells.astype(str).str.strip()
     lowered = text.str.lower()
@@ -334,14 +512,23 @@ def _to_number(cells: pd.Series, decimal: str) -> tuple[np.ndarray, np.ndarray]:
     spaced = work.str.match(_THOUSANDS_SPACE.pattern)
     if spaced.any():
         work = work.where(~spaced, work.str.replace(r"[ \u00a0\u202f']", "", regex=True))
-    values = pd.to_numeric(work.mask(is_missing, np.nan), errors="coerce").to_numpy(dtype=np.float64)
+    values = _pandas().to_numeric(work.mask(is_missing, np.nan), errors="coerce").to_numpy(dtype=np.float64)
     bad = np.isnan(values) & ~is_missing
     # "nan" spelled out is missing, "inf" parses to inf and is kept for the infinity check.
     return values, bad
 
 
-def type_column(name: str, cells: pd.Series, decimal: str) -> TypedColumn:
-    """Decide whether a column is numeric; keep the non-numeric examples for the message."""
+def type_column(name: str, cells, decimal: str) -> TypedColumn:
+    """Decide whether a column is numeric; keep the non-numeric examples for the message.
+
+    ``cells`` is a float array when the reader already typed the column as numbers, a
+    :class:`DateColumn` for dates, else a pandas Series of cells.
+    """
+    if isinstance(cells, np.ndarray):
+        return TypedColumn(name, cells, None, _count_nan(cells), [], 0)
+    if isinstance(cells, DateColumn):
+        return TypedColumn(name, None, cells.texts, cells.missing, ["(dates)"], cells.length, dates=True)
+    pd = _pandas()
     if pd.api.types.is_bool_dtype(cells):
         values = cells.astype(float).to_numpy()
         return TypedColumn(name, values, cells, int(np.isnan(values).sum()), [], 0)
@@ -349,7 +536,7 @@ def type_column(name: str, cells: pd.Series, decimal: str) -> TypedColumn:
         values = pd.to_numeric(cells, errors="coerce").to_numpy(dtype=np.float64)
         return TypedColumn(name, values, cells, int(np.isnan(values).sum()), [], 0)
     if pd.api.types.is_datetime64_any_dtype(cells):
-        return TypedColumn(name, None, cells, int(cells.isna().sum()), ["(dates)"], len(cells))
+        return TypedColumn(name, None, cells.astype(str), int(cells.isna().sum()), ["(dates)"], len(cells), dates=True)
     as_text = cells.map(lambda v: "" if v is None or (isinstance(v, float) and np.isnan(v)) else str(v))
     values, bad = _to_number(as_text, decimal)
     missing = int((np.isnan(values) & ~bad).sum())
@@ -366,14 +553,17 @@ def _looks_like_identifier(col: TypedColumn, n_rows: int) -> str | None:
     if n_rows < MIN_ROWS:
         return None
     if col.values is None:
-        if col.n_bad * 2 <= n_rows - col.missing:
-            return None  # mostly numbers: a numeric column with stray text, not a label
+        if col.dates or col.n_bad * 2 <= n_rows - col.missing:
+            return None  # dates, or mostly numbers: a numeric column with stray text, not a label
         present = col.raw[col.raw.str.strip().str.lower().map(lambda s: s not in MISSING_SPELLINGS)]
         if len(present) == n_rows and present.nunique() == n_rows:
             return "identifier-like: every value is a distinct text label"
         return None
     v = col.values
-    if np.isnan(v).any() or not np.all(np.isfinite(v)) or not np.all(v == np.round(v)):
+    head = v[:64]  # most feature columns show a fraction within their first values
+    if col.missing or not np.all(head == np.round(head)):
+        return None
+    if not np.all(np.isfinite(v)) or not np.all(v == np.round(v)):
         return None
     if len(np.unique(v)) != n_rows:
         return None
@@ -389,6 +579,45 @@ def _looks_like_identifier(col: TypedColumn, n_rows: int) -> str | None:
     if consecutive or monotone:
         return "identifier-like: every value is a distinct integer"
     return None
+
+
+def _count_nan(v: np.ndarray) -> int:
+    """Number of NaN in ``v``; one pass (a minimum is NaN exactly when a NaN is present)."""
+    if v.size == 0 or not np.isnan(v.min()):
+        return 0
+    return int(np.count_nonzero(np.isnan(v)))
+
+
+def _extremes(v: np.ndarray, missing: int) -> tuple[float, float]:
+    """Smallest and largest value, ignoring NaN (the column has a value that is not NaN)."""
+    if missing == 0:
+        return float(v.min()), float(v.max())
+    return float(np.fmin.reduce(v)), float(np.fmax.reduce(v))
+
+
+def _feature_matrix(columns: list[np.ndarray]) -> np.ndarray:
+    """The column-major matrix of the feature columns. When they are, in order, every column
+    of one column-major block (a Parquet or CSV file of numbers read by Arrow), that block
+    is the matrix and nothing is copied."""
+    base = columns[0].base
+    if (
+        isinstance(base, np.ndarray) and base.ndim == 2 and base.flags.f_contiguous
+        and base.shape == (len(columns[0]), len(columns))
+        and all(c.base is base and np.shares_memory(c, base[:, j]) and c.ctypes.data == base[:, j].ctypes.data
+                for j, c in enumerate(columns))
+    ):
+        return base
+    matrix = np.empty((len(columns[0]), len(columns)), order="F")
+    for j, values in enumerate(columns):
+        matrix[:, j] = values
+    return matrix
+
+
+def labels_of(column: TypedColumn, row_numbers: np.ndarray) -> RowLabels:
+    """Row labels from an identifier column: its numbers, else its text, as written."""
+    if column.values is not None:
+        return RowLabels(row_numbers, numbers=column.values)
+    return RowLabels(row_numbers, texts=np.array(column.raw.astype(str).str.strip().tolist(), dtype=object))
 
 
 def _format_value(x: float) -> str:
@@ -431,15 +660,46 @@ def _check_known(names: list[str], available: list[str], option: str) -> None:
         )
 
 
+class FileDigest:
+    """SHA-256 of a file's bytes, computed on a second thread while the file is parsed
+    (hashlib releases the interpreter lock on large buffers)."""
+
+    def __init__(self, path: Path | None = None, data: bytes | None = None):
+        self._value: str | None = None
+        self._error: BaseException | None = None
+        self._thread = threading.Thread(target=self._run, args=(path, data), daemon=True)
+        self._thread.start()
+
+    def _run(self, path, data) -> None:
+        try:
+            if data is not None:
+                self._value = hashlib.sha256(data).hexdigest()
+            else:
+                self._value = sha256_of_file(path)
+        except BaseException as exc:  # handed to the caller by hexdigest()
+            self._error = exc
+
+    def hexdigest(self) -> str:
+        self._thread.join()
+        if self._error is not None:
+            raise InputError(f"cannot read the input to hash it ({self._error})", "check the file")
+        return self._value
+
+
 def read_table(source, *, sheet: str | None = None):
-    """Read ``source`` (path or DataFrame) into (header, frame of cells, metadata)."""
+    """Read ``source`` (path or DataFrame) into (header, columns, metadata).
+
+    Each column is a float array (NaN for missing) when the reader typed it as numbers, a
+    :class:`DateColumn`, or a pandas Series of cells for :func:`type_column` to read.
+    ``meta["sha256"]`` is a :class:`FileDigest` (None for a DataFrame).
+    """
     meta: dict = {"notes": [], "text_format": None, "sheet": None, "sha256": None}
-    if isinstance(source, pd.DataFrame):
+    pd = sys.modules.get("pandas")  # a DataFrame can only exist once pandas is imported
+    if pd is not None and isinstance(source, pd.DataFrame):
         header = [str(c) for c in source.columns]
-        frame = source.reset_index(drop=True).copy()
-        frame.columns = range(frame.shape[1])
+        frame = source.reset_index(drop=True)
         meta.update(source="<DataFrame>", file_type="dataframe")
-        return header, frame, meta
+        return header, _frame_columns(frame), meta
     path = Path(source)
     name = path.name or str(path)
     if not path.exists():
@@ -447,17 +707,19 @@ def read_table(source, *, sheet: str | None = None):
     if path.is_dir():
         raise InputError(f"{source} is a folder, not a file", "give the path of a CSV, Parquet or .xlsx file")
     try:
-        raw = path.read_bytes()
+        with open(path, "rb") as handle:
+            head = handle.read(65536)
+            size = path.stat().st_size
     except OSError as exc:
         raise InputError(f"cannot read {source} ({exc.strerror})", "check the file's permissions")
-    meta.update(source=name, sha256=hashlib.sha256(raw).hexdigest())
-    if not raw.strip():
+    meta["source"] = name
+    if size == 0 or (size <= len(head) and head.isspace()):
         raise InputError(f"{name} is empty", "give a file with a header row and data rows")
-    kind = sniff_kind(raw[:16])
+    kind = sniff_kind(head[:16])
     suffix = path.suffix.lower()
     if suffix in (".xlsx", ".xlsm") and kind != "zip":
         what = "text" if kind == "text" else kind
-        if kind == "text" and b"\x00" in raw[:65536]:
+        if kind == "text" and b"\x00" in head:
             what = "binary content"
         raise InputError(
             f"{name} is named {suffix} but holds {what}, not a workbook",
@@ -468,16 +730,25 @@ def read_table(source, *, sheet: str | None = None):
     if suffix == ".parquet" and kind != "parquet":
         raise InputError(f"{name} is named .parquet but is not a Parquet file", "rename it to match its content")
     if kind == "parquet":
-        header, frame = read_parquet_table(path, name)
+        meta["sha256"] = FileDigest(path=path)
+        header, columns = read_parquet_table(path, name)
         meta["file_type"] = "parquet"
     elif kind == "zip":
-        header, frame, used_sheet = read_excel_table(path, name, sheet)
+        meta["sha256"] = FileDigest(path=path)
+        header, columns, used_sheet = read_excel_table(path, name, sheet)
         meta.update(file_type="xlsx", sheet=used_sheet)
     else:
-        header, frame, fmt, notes = read_text_table(raw, name)
+        try:
+            raw = path.read_bytes()
+        except OSError as exc:
+            raise InputError(f"cannot read {source} ({exc.strerror})", "check the file's permissions")
+        meta["sha256"] = FileDigest(data=raw)
+        if raw.isspace():
+            raise InputError(f"{name} is empty", "give a file with a header row and data rows")
+        header, columns, fmt, notes = read_text_table(raw, name)
         meta.update(file_type="csv", text_format=fmt)
         meta["notes"].extend(notes)
-    return header, frame, meta
+    return header, columns, meta
 
 
 def load(
@@ -493,15 +764,14 @@ def load(
     """Read and screen ``source``; see the module docstring."""
     if missing not in MISSING_POLICIES:
         raise InputError(f"unknown missing-value policy {missing!r}", f"use one of: {', '.join(MISSING_POLICIES)}")
-    header, frame, meta = read_table(source, sheet=sheet)
+    header, cells, meta = read_table(source, sheet=sheet)
     name = meta["source"]
     header = _unique_header(header, name)
-    n_rows = int(frame.shape[0])
+    n_rows = len(cells[0]) if cells else 0
     if n_rows == 0:
         raise InputError(f"{name} has a header but no data rows", "give a file with data rows")
-    if frame.shape[1] < len(header):
-        for j in range(frame.shape[1], len(header)):
-            frame[j] = ""
+    while len(cells) < len(header):  # a header longer than its rows: the extra columns are empty
+        cells.append(np.full(n_rows, np.nan))
     if n_rows < MIN_ROWS:
         raise InputError(
             f"{name} has {n_rows} data row(s), at least {MIN_ROWS} are needed",
@@ -539,12 +809,12 @@ def load(
             excluded.append({"column": col, "reason": "excluded by --exclude"})
             continue
         candidates.append(col)
-        typed[col] = type_column(col, frame[j], decimal)
+        typed[col] = type_column(col, cells[j], decimal)
 
     # Identifier: the named one, else the first column that looks like one.
     labels_from: TypedColumn | None = None
     if id_column is not None:
-        labels_from = type_column(id_column, frame[header.index(id_column)], decimal)
+        labels_from = type_column(id_column, cells[header.index(id_column)], decimal)
     kept: list[str] = []
     for col in candidates:
         tc = typed[col]
@@ -571,19 +841,19 @@ def load(
         kept.append(col)
 
     # Infinity is an error, not a value (DESIGN.md, intake); so is a value whose square
-    # overflows, since every second moment would be infinite.
+    # overflows, since every second moment would be infinite. Both show in the extremes.
+    extremes = {col: _extremes(typed[col].values, typed[col].missing) for col in kept}
     for col in kept:
+        low, high = extremes[col]
         v = typed[col].values
-        bad = np.isinf(v)
-        if bad.any():
-            row = int(np.argmax(bad)) + 1
+        if low == -np.inf or high == np.inf:
+            row = int(np.argmax(np.isinf(v))) + 1
             raise InputError(
                 f"column {col!r} holds an infinite value at data row {row}",
                 "replace it with a finite number or leave the cell empty",
             )
-        huge = np.abs(np.nan_to_num(v)) > MAX_MAGNITUDE
-        if huge.any():
-            row = int(np.argmax(huge)) + 1
+        if max(abs(low), abs(high)) > MAX_MAGNITUDE:
+            row = int(np.argmax(np.abs(np.nan_to_num(v)) > MAX_MAGNITUDE)) + 1
             raise InputError(
                 f"column {col!r} holds {v[row - 1]:.3g} at data row {row}, too large to square in floating point",
                 f"rescale the column (values up to {MAX_MAGNITUDE:.0e} in magnitude are read)",
@@ -592,10 +862,9 @@ def load(
     # Constant columns (among the non-missing values).
     still: list[str] = []
     for col in kept:
-        v = typed[col].values
-        present = v[~np.isnan(v)]
-        if present.size and np.all(present == present[0]):
-            excluded.append({"column": col, "reason": f"constant: every value is {_format_value(present[0])}"})
+        low, high = extremes[col]
+        if low == high:
+            excluded.append({"column": col, "reason": f"constant: every value is {_format_value(low)}"})
             continue
         still.append(col)
     kept = still
@@ -608,13 +877,13 @@ def load(
             "give a table with two or more numeric, non-constant feature columns",
         )
 
-    matrix = np.column_stack([typed[c].values for c in kept]).astype(np.float64)
-    missing_per_column = {c: int(np.isnan(typed[c].values).sum()) for c in kept}
+    matrix = _feature_matrix([typed[c].values for c in kept])
+    missing_per_column = {c: typed[c].missing for c in kept}
     row_numbers = np.arange(1, n_rows + 1)
 
     target_values = None
     if target is not None:
-        tc = type_column(target, frame[header.index(target)], decimal)
+        tc = type_column(target, cells[header.index(target)], decimal)
         if tc.values is None:
             examples = ", ".join(repr(e) for e in tc.bad_examples)
             raise InputError(f"target column {target!r} is not numeric (e.g. {examples})", "code it as numbers (0/1 for a binary outcome)")
@@ -623,21 +892,12 @@ def load(
             raise InputError(f"target column {target!r} holds an infinite value at data row {row}", "replace it with a finite number")
         target_values = tc.values
 
-    if labels_from is not None:
-        raw_labels = labels_from.raw.astype(str).str.strip().tolist()
-        if labels_from.values is not None:
-            raw_labels = [
-                (str(int(x)) if np.isfinite(x) and x == int(x) else repr(float(x))) if not np.isnan(x) else f"row {i + 1}"
-                for i, x in enumerate(labels_from.values)
-            ]
-        labels = np.array(raw_labels, dtype=object)
-    else:
-        labels = np.array([f"row {i}" for i in row_numbers], dtype=object)
+    labels = RowLabels(row_numbers) if labels_from is None else labels_of(labels_from, row_numbers)
 
-    holes = np.isnan(matrix)
     rows_dropped = 0
     imputed = 0
-    if holes.any():
+    if any(missing_per_column.values()):
+        holes = np.isnan(matrix)
         if missing == "fail":
             r, c = np.argwhere(holes)[0]
             raise InputError(
@@ -655,7 +915,7 @@ def load(
         else:  # mean imputation
             means = np.nanmean(matrix, axis=0)
             imputed = int(holes.sum())
-            matrix = np.where(holes, means, matrix)
+            matrix = np.asfortranarray(np.where(holes, means, matrix))
             notes.append(
                 note(
                     "mean_imputation",
@@ -670,37 +930,45 @@ def load(
             "give more complete rows, or use --missing mean",
         )
     # A column can turn constant once incomplete rows are gone.
-    spread = matrix.max(axis=0) - matrix.min(axis=0)
-    if np.any(spread == 0):
-        for j in np.flatnonzero(spread == 0)[::-1]:
+    if rows_dropped:
+        low, high = matrix.min(axis=0), matrix.max(axis=0)
+    else:
+        low = np.array([extremes[c][0] for c in kept])
+        high = np.array([extremes[c][1] for c in kept])
+    if np.any(low == high):
+        for j in np.flatnonzero(low == high)[::-1]:
             excluded.append(
                 {"column": kept[j], "reason": f"constant on the rows used: every value is {_format_value(matrix[0, j])}"}
             )
             del missing_per_column[kept[j]]
-        keep_cols = spread > 0
+        keep_cols = low != high
         kept = [c for c, k in zip(kept, keep_cols) if k]
-        matrix = matrix[:, keep_cols]
+        matrix, low, high = np.asfortranarray(matrix[:, keep_cols]), low[keep_cols], high[keep_cols]
         if len(kept) < 2:
             raise InputError(
                 f"{name} has {len(kept)} non-constant column(s) on the rows used, at least 2 are needed",
                 "give a table with two or more varying numeric columns",
             )
 
-    binary = [c for j, c in enumerate(kept) if np.all((matrix[:, j] == 0.0) | (matrix[:, j] == 1.0))]
+    # Binary 0/1 columns: only those whose extremes are 0 and 1 need the full look.
+    binary = [
+        c for j, c in enumerate(kept)
+        if low[j] == 0.0 and high[j] == 1.0 and np.all((matrix[:, j] == 0.0) | (matrix[:, j] == 1.0))
+    ]
     for c in binary:
         notes.append(note("binary_column", "caution", f"column {c!r} is binary (0/1); PCA treats it as continuous, read its loadings with care", c))
     order = {c: i for i, c in enumerate(header)}
     excluded.sort(key=lambda e: order.get(e["column"], len(order)))
     return IntakeResult(
         source=name,
-        sha256=meta["sha256"],
+        sha256=meta["sha256"].hexdigest() if meta["sha256"] is not None else None,
         file_type=meta["file_type"],
         rows_read=n_rows,
         rows_used=int(matrix.shape[0]),
         columns_used=kept,
         excluded=excluded,
         data=matrix,
-        row_labels=[str(x) for x in labels],
+        row_labels=labels,
         row_numbers=row_numbers,
         id_column=labels_from.name if labels_from is not None else None,
         target_name=target,

@@ -4,6 +4,8 @@ from __future__ import annotations
 import io
 from pathlib import Path
 
+import numpy as np
+
 from .atomic import write_bytes_atomic
 from .errors import InputError, VerificationFailed
 from .record import dumps, load as load_json_record, loads
@@ -97,8 +99,7 @@ def apply_file(record_path: str | Path, data_path: str | Path, out: str | Path, 
     out = Path(out)
     if out.exists() and not force:
         raise InputError(f"{out} already exists", "choose another --out file, or pass --force to replace it")
-    header, frame, _meta = read_table(data_path)
-    frame.columns = header
+    header, cells, _meta = read_table(data_path)
     if len(set(header)) != len(header):
         raise InputError(f"{Path(data_path).name} has duplicate column names", "give every column a distinct name")
     plan = ReductionPlan.from_record(record)
@@ -108,7 +109,7 @@ def apply_file(record_path: str | Path, data_path: str | Path, out: str | Path, 
             f"{Path(data_path).name} lacks {len(missing)} feature column(s) of the plan: {', '.join(missing[:10])}",
             "give a table with the columns the record was made from",
         )
-    from .intake import type_column
+    from .intake import labels_of, type_column
 
     fmt = _meta.get("text_format")
     decimal = fmt.decimal if fmt else "."
@@ -116,13 +117,14 @@ def apply_file(record_path: str | Path, data_path: str | Path, out: str | Path, 
 
     numeric = {}
     for c in plan.columns:
-        typed = type_column(c, frame[c], decimal)
+        typed = type_column(c, cells[header.index(c)], decimal)
         if typed.values is None:
             raise InputError(f"column {c!r} of {Path(data_path).name} is not numeric (e.g. {typed.bad_examples[0]!r})", "fix the values")
         numeric[c] = typed.values
     scored = plan.score_rows(pd.DataFrame(numeric))
     if plan.id_column and plan.id_column in header:
-        scored.insert(0, plan.id_column, frame[plan.id_column].astype(str).str.strip().to_numpy())
+        ids = type_column(plan.id_column, cells[header.index(plan.id_column)], decimal)
+        scored.insert(0, plan.id_column, labels_of(ids, np.arange(1, len(scored) + 1)).tolist())
     buffer = io.StringIO()
     scored.to_csv(buffer, index=False, lineterminator="\n", float_format="%.10g")
     write_bytes_atomic(out, buffer.getvalue().encode("utf-8"))

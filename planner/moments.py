@@ -21,6 +21,9 @@ from dataclasses import dataclass, field
 
 import numpy as np
 
+#: Rows a block: about 6 MB at 100 features, so that a block's passes run in cache.
+BLOCK_ROWS = 8192
+
 
 @dataclass
 class Moments:
@@ -34,6 +37,11 @@ class Moments:
         Number of complete rows accumulated (rows with a missing value in any column are
         counted in ``rows_seen`` and ``missing`` but do not enter the moments).
     mean : ndarray (p,)
+        ``shift + offset`` (read-only): the mean is held as a reference point taken from
+        the first rows and the offset from it, so that merging the moments of blocks whose
+        means are far from zero compares small offsets, not large means that have each
+        been rounded (which would cost digits of every co-moment).
+    shift, offset : ndarray (p,)
     comoment : ndarray (p, p)
         Sum over rows of ``(x - mean)(x - mean)^T``; the covariance is
         ``comoment / (n - 1)``.
@@ -55,7 +63,8 @@ class Moments:
 
     columns: list[str]
     n: int = 0
-    mean: np.ndarray = field(default=None)  # type: ignore[assignment]
+    shift: np.ndarray = field(default=None)  # type: ignore[assignment]
+    offset: np.ndarray = field(default=None)  # type: ignore[assignment]
     comoment: np.ndarray = field(default=None)  # type: ignore[assignment]
     m3: np.ndarray = field(default=None)  # type: ignore[assignment]
     m4: np.ndarray = field(default=None)  # type: ignore[assignment]
@@ -70,8 +79,9 @@ class Moments:
     def __post_init__(self) -> None:
         self.columns = list(self.columns)
         p = len(self.columns)
-        if self.mean is None:
-            self.mean = np.zeros(p)
+        if self.offset is None:
+            self.shift = np.zeros(p)
+            self.offset = np.zeros(p)
             self.comoment = np.zeros((p, p)) if self.full else None
             self.m2 = np.zeros(p)
             self.m3 = np.zeros(p)
@@ -85,12 +95,19 @@ class Moments:
     def p(self) -> int:
         return len(self.columns)
 
+    @property
+    def mean(self) -> np.ndarray:
+        return self.shift + self.offset
+
     # ------------------------------------------------------------------ building
     @classmethod
-    def from_array(cls, x: np.ndarray, columns: list[str], full: bool = True) -> "Moments":
-        """Moments of a whole array in one step (the chunk formula on one chunk)."""
+    def from_array(cls, x: np.ndarray, columns: list[str], full: bool = True, block_rows: int = BLOCK_ROWS) -> "Moments":
+        """Moments of a whole array, in blocks of rows that stay in the processor's cache
+        (each block's moments merged in as a chunk; the result does not depend on the
+        block size beyond rounding)."""
         moments = cls(columns, full=full)
-        moments.update(x)
+        for start in range(0, max(x.shape[0], 1), block_rows):
+            moments.update(x[start : start + block_rows])
         return moments
 
     def update(self, chunk: np.ndarray) -> "Moments":
@@ -102,38 +119,62 @@ class Moments:
         chunk = np.asarray(chunk, dtype=np.float64)
         if chunk.ndim != 2 or chunk.shape[1] != self.p:
             raise ValueError(f"chunk must have shape (m, {self.p}), got {chunk.shape}")
-        nan = np.isnan(chunk)
-        self.missing = self.missing + nan.sum(axis=0)
         self.rows_seen += chunk.shape[0]
-        complete = chunk[~nan.any(axis=1)] if nan.any() else chunk
-        if complete.shape[0] == 0:
+        if chunk.shape[0] == 0:
             return self
-        other = Moments._of_complete_rows(complete, self.columns, self.full)
+        # A NaN anywhere makes its column's sum NaN: the full look at the holes is only
+        # needed then (an infinity can make a sum NaN too; the look then finds no hole).
+        sums = np.ones(chunk.shape[0]) @ chunk
+        if np.isnan(sums).any():
+            nan = np.isnan(chunk)
+            self.missing = self.missing + nan.sum(axis=0)
+            chunk = chunk[~nan.any(axis=1)]
+            if chunk.shape[0] == 0:
+                return self
+            sums = np.ones(chunk.shape[0]) @ chunk
+        other = Moments._of_complete_rows(chunk, self.columns, self.full, sums, self.shift if self.n else None)
         self._merge_in(other)
         return self
 
     @staticmethod
-    def _of_complete_rows(x: np.ndarray, columns: list[str], full: bool = True) -> "Moments":
+    def _of_complete_rows(
+        x: np.ndarray, columns: list[str], full: bool = True, sums: np.ndarray | None = None, shift: np.ndarray | None = None,
+    ) -> "Moments":
+        """Two-pass moments of complete rows: deviations d from the first mean, then the
+        exact central sums from d and its mean c (which is rounding-sized), folded in
+        analytically instead of by a second subtraction:
+        sum (d - c)(d - c)^T = D^T D - m c c^T, sum (d - c)^3 = S3 - 3c S2 + 2m c^3,
+        sum (d - c)^4 = S4 - 4c S3 + 6c^2 S2 - 3m c^4.
+        The mean is returned as ``shift`` (the given one, else the first mean) and the
+        offset (first mean - shift) + c."""
         m = x.shape[0]
-        mean = x.mean(axis=0)
+        ones = np.ones(m)
+        mean = (ones @ x if sums is None else sums) / m
+        if shift is None:
+            shift = mean
         d = x - mean
-        # A second correction pass keeps the mean exact to rounding for data far from 0.
-        correction = d.mean(axis=0)
-        mean = mean + correction
-        d = d - correction
+        c = (ones @ d) / m  # the correction that keeps the mean exact to rounding far from 0
         d2 = d * d
+        s2 = ones @ d2
+        s3 = np.einsum("ij,ij->j", d2, d)
+        s4 = np.einsum("ij,ij->j", d2, d2)
+        comoment = None
+        if full:
+            comoment = d.T @ d
+            comoment -= m * np.outer(c, c)
         return Moments(
             columns=columns,
             n=m,
-            mean=mean,
-            comoment=d.T @ d if full else None,
-            m2=d2.sum(axis=0),
+            shift=shift.copy(),
+            offset=(mean - shift) + c,
+            comoment=comoment,
+            m2=s2 - m * c * c,
             full=full,
-            m3=(d2 * d).sum(axis=0),
-            m4=(d2 * d2).sum(axis=0),
+            m3=s3 - 3.0 * c * s2 + 2.0 * m * c**3,
+            m4=s4 - 4.0 * c * s3 + 6.0 * c * c * s2 - 3.0 * m * c**4,
             minimum=x.min(axis=0),
             maximum=x.max(axis=0),
-            zeros=(x == 0).sum(axis=0).astype(np.int64),
+            zeros=np.count_nonzero(x == 0, axis=0).astype(np.int64),
             missing=np.zeros(len(columns), dtype=np.int64),
             rows_seen=0,
         )
@@ -162,7 +203,7 @@ class Moments:
         if nb == 0:
             return
         if na == 0:
-            self.n, self.mean = nb, b.mean.copy()
+            self.n, self.shift, self.offset = nb, b.shift.copy(), b.offset.copy()
             self.comoment = b.comoment.copy() if self.full else None
             self.m2 = b.m2.copy()
             self.m3, self.m4 = b.m3.copy(), b.m4.copy()
@@ -171,7 +212,8 @@ class Moments:
             self.zeros = self.zeros + b.zeros
             return
         n = na + nb
-        delta = b.mean - self.mean
+        # Two nearby shifts subtract exactly (Sterbenz); the offsets are small.
+        delta = (b.shift - self.shift) + (b.offset - self.offset)
         m2a, m2b = self.m2, b.m2
         self.m4 = (
             self.m4
@@ -189,7 +231,7 @@ class Moments:
         if self.full:
             self.comoment = self.comoment + b.comoment + np.outer(delta, delta) * (na * nb / n)
         self.m2 = m2a + m2b + delta**2 * (na * nb / n)
-        self.mean = self.mean + delta * (nb / n)
+        self.offset = self.offset + delta * (nb / n)
         self.n = n
         self.minimum = np.minimum(self.minimum, b.minimum)
         self.maximum = np.maximum(self.maximum, b.maximum)
@@ -199,7 +241,8 @@ class Moments:
         return Moments(
             columns=list(self.columns),
             n=self.n,
-            mean=self.mean.copy(),
+            shift=self.shift.copy(),
+            offset=self.offset.copy(),
             comoment=self.comoment.copy() if self.full else None,
             m2=self.m2.copy(),
             full=self.full,
@@ -218,7 +261,8 @@ class Moments:
         return Moments(
             columns=list(columns),
             n=self.n,
-            mean=self.mean[idx].copy(),
+            shift=self.shift[idx].copy(),
+            offset=self.offset[idx].copy(),
             comoment=self.comoment[np.ix_(idx, idx)].copy() if self.full else None,
             m2=self.m2[idx].copy(),
             full=self.full,

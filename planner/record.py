@@ -39,6 +39,9 @@ def new_record_id(now: datetime | None = None) -> str:
     return f"AXL-{now:%Y%m%d}-{secrets.token_hex(4)}"
 
 
+_FIELD_NAMES: dict[type, tuple[str, ...]] = {}
+
+
 def jsonable(value):
     """Convert numpy and dataclass values to plain JSON values; non-finite floats to None."""
     kind = type(value)
@@ -57,7 +60,10 @@ def jsonable(value):
                 return values.tolist()
         return [jsonable(v) for v in value.tolist()]
     if dataclasses.is_dataclass(value) and not isinstance(value, type):
-        return jsonable({f.name: getattr(value, f.name) for f in dataclasses.fields(value)})
+        names = _FIELD_NAMES.get(kind)
+        if names is None:
+            names = _FIELD_NAMES[kind] = tuple(f.name for f in dataclasses.fields(value))
+        return jsonable({name: getattr(value, name) for name in names})
     if isinstance(value, (bool, np.bool_)):
         return bool(value)
     if isinstance(value, (int, np.integer)):
@@ -107,8 +113,50 @@ def seal(record: dict) -> dict:
 
 
 def dumps(record: dict) -> str:
-    """Pretty strict JSON for the file on disk (the hash uses the canonical form)."""
-    return json.dumps(record, indent=2, ensure_ascii=False, allow_nan=False) + "\n"
+    """Pretty strict JSON for the file on disk (the hash uses the canonical form): objects
+    indented two spaces a level, a list of plain values on one line. Each such list goes
+    through json's C encoder; ``indent=`` would send the whole record through its much
+    slower Python encoder."""
+    parts: list[str] = []
+    _pretty(record, 0, parts)
+    parts.append("\n")
+    return "".join(parts)
+
+
+def _scalar(value) -> bool:
+    return not isinstance(value, (dict, list))
+
+
+def _flat(value) -> bool:
+    """Written on one line: a scalar, a list of scalars, an object of scalars (a map of a
+    figure by feature), or a small object of scalars and lists of scalars (a finding, a
+    row, a column's profile)."""
+    if isinstance(value, list):
+        return all(_scalar(v) for v in value)
+    if isinstance(value, dict):
+        if all(_scalar(v) for v in value.values()):
+            return True
+        return len(value) <= 16 and all(_scalar(v) or (isinstance(v, list) and all(_scalar(x) for x in v)) for v in value.values())
+    return True
+
+
+def _pretty(value, level: int, out: list[str]) -> None:
+    if _flat(value):
+        out.append(json.dumps(value, ensure_ascii=False, allow_nan=False, separators=(", ", ": ")))
+        return
+    pad = "  " * (level + 1)
+    if isinstance(value, dict):
+        out.append("{")
+        for i, (key, item) in enumerate(value.items()):
+            out.append(("," if i else "") + "\n" + pad + json.dumps(str(key), ensure_ascii=False) + ": ")
+            _pretty(item, level + 1, out)
+        out.append("\n" + "  " * level + "}")
+    else:
+        out.append("[")
+        for i, item in enumerate(value):
+            out.append(("," if i else "") + "\n" + pad)
+            _pretty(item, level + 1, out)
+        out.append("\n" + "  " * level + "]")
 
 
 def _refuse_constant(token: str):

@@ -147,6 +147,10 @@ class Rulebook:
         breaks the rule (``subject`` = the name); a list gives one finding per position
         (``subject`` = "1", "2", ... ). Order: severity (blocker, caution, note), then the
         rule's place in the file, then the subject's place in the figure.
+
+        A rule that fires for more than MAX_SUBJECTS subjects of one figure (a table of
+        thousands of features) gives findings for the MAX_SUBJECTS that break it furthest
+        and one more finding that counts the others; the figure itself keeps every value.
         """
         findings: list[tuple[int, int, int, dict]] = []
         for rule_index, rule in enumerate(self.rules):
@@ -159,9 +163,25 @@ class Rulebook:
                 entries = [(str(i), item) for i, item in enumerate(value, start=1)]
             else:
                 entries = [(None, value)]
-            for subject_index, (subject, item) in enumerate(entries):
-                if not rule.fires(item):
-                    continue
+            fired = [(i, subject, item) for i, (subject, item) in enumerate(entries) if rule.fires(item)]
+            if len(fired) > MAX_SUBJECTS:
+                fired.sort(key=lambda entry: -_breach(rule, _as_value(entry[2])))
+                rest = len(fired) - MAX_SUBJECTS
+                fired = sorted(fired[:MAX_SUBJECTS])
+                summary = {
+                    "rule_id": rule.id,
+                    "severity": rule.severity,
+                    "message": f"{rest} more entries of {rule.figure} break this rule ({rule.condition()}); "
+                               f"the {MAX_SUBJECTS} above break it furthest, and {rule.figure} holds every value",
+                    "value": None,
+                    "threshold": rule.threshold,
+                    "source": rule.source,
+                    "figure": rule.figure,
+                    "subject": None,
+                    "more_subjects": rest,
+                }
+                findings.append((_SEVERITY_RANK[rule.severity], rule_index, len(entries), summary))
+            for subject_index, subject, item in fired:
                 item = _as_value(item)
                 finding = {
                     "rule_id": rule.id,
@@ -176,6 +196,18 @@ class Rulebook:
                 findings.append((_SEVERITY_RANK[rule.severity], rule_index, subject_index, finding))
         findings.sort(key=lambda entry: entry[:3])
         return [entry[3] for entry in findings]
+
+
+#: Findings of one rule on one figure beyond which the rest are counted in one finding.
+MAX_SUBJECTS = 20
+
+
+def _breach(rule: Rule, value: Any) -> float:
+    """How far ``value`` lies beyond the rule's threshold (0 for == and !=)."""
+    if isinstance(value, bool) or rule.compare in ("==", "!="):
+        return 0.0
+    gap = float(value) - float(rule.threshold)
+    return gap if rule.compare in (">", ">=") else -gap
 
 
 def render_message(template: str, subject: str, value: Any, threshold: Any) -> str:

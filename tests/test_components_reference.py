@@ -616,3 +616,32 @@ def test_p_at_least_n_route_gives_the_nonzero_eigenvalues_of_r():
     # Also scikit-learn's PCA of the standardised rows.
     pca = PCA(svd_solver="full").fit(StandardScaler().fit_transform(x))
     np.testing.assert_allclose(d["explained_ratio"], pca.explained_variance_ratio_[:7], rtol=0, atol=1e-10)
+
+
+def test_clopper_pearson_interval_equals_scipy():
+    # Source: scipy.stats.binomtest(...).proportion_ci(method="exact"), the Clopper and
+    # Pearson (1934) interval.
+    for successes, trials in [(0, 200), (3, 200), (10, 200), (57, 300), (300, 300)]:
+        low, high = retention.clopper_pearson(np.array([successes]), trials, 0.999)
+        ci = scipy.stats.binomtest(successes, trials).proportion_ci(confidence_level=0.999, method="exact")
+        assert float(low[0]) == pytest.approx(ci.low, abs=1e-12)
+        assert float(high[0]) == pytest.approx(ci.high, abs=1e-12)
+
+
+def test_sequential_parallel_analysis_stops_early_only_when_the_call_is_clear():
+    # Besag and Clifford (1991): draws stop once more draws could not change the decision.
+    # A clear table stops at the first look and decides as all 1000 draws do; eigenvalues
+    # placed on the null's own 95th percentile need every draw. (Eigenvalues from
+    # numpy.linalg.eigvalsh of numpy.corrcoef.)
+    rng = np.random.default_rng(1991)
+    n, p = 500, 30
+    f = rng.standard_normal((n, 3))
+    x = f @ (rng.uniform(0.6, 1.0, (3, p)) * (rng.random((3, p)) < 0.5)) + rng.standard_normal((n, p))
+    lam = np.linalg.eigvalsh(np.corrcoef(x, rowvar=False))[::-1]
+    quick = retention.parallel_analysis(lam, n, p, np.random.default_rng(1), standardized=True)
+    full = retention.parallel_analysis(lam, n, p, np.random.default_rng(2), standardized=True, sequential=False)
+    assert quick.evidence["draws"] == retention.PA_FIRST_DRAWS and full.evidence["draws"] == 1000
+    assert quick.k == full.k == 3
+    borderline = np.asarray(full.evidence["null_percentile"], float).copy()
+    close = retention.parallel_analysis(borderline, n, p, np.random.default_rng(3), standardized=True)
+    assert close.evidence["draws"] == 1000

@@ -277,3 +277,81 @@ def test_sha256_is_of_the_file_bytes():
 
     path = _tmp_file(SIMPLE_CSV, "s.csv")
     assert intake.load(path).sha256 == hashlib.sha256(path.read_bytes()).hexdigest()
+
+
+# ------------------------------------------------------------------ the two text readers
+def test_clean_numeric_csv_values_equal_pandas_to_the_bit(tmp_path):
+    # Reference: Python's float() on each cell (correctly rounded decimal-to-binary
+    # conversion, IEEE 754). Clean files are parsed by pyarrow; every value must be the
+    # same double.
+    rng = np.random.default_rng(11)
+    n = 400
+    frame = pd.DataFrame({
+        "a": rng.standard_normal(n) * 1e-7,
+        "b": rng.integers(-50_000, 50_000, n),
+        "c": rng.standard_normal(n) * 1e12,
+        "d": np.round(rng.uniform(0, 1, n), 3),
+    })
+    path = tmp_path / "clean.csv"
+    text = frame.to_csv(index=False, float_format="%.17g")
+    lines = text.splitlines()
+    lines[5] = lines[5].split(",", 1)[0] + ",NA," + lines[5].split(",", 2)[2]  # one missing value
+    path.write_text("\n".join(lines) + "\n", encoding="utf-8")
+    import csv
+
+    with open(path, newline="") as handle:
+        body = list(csv.reader(handle))[1:]
+    reference = np.array([[float(c) if c != "NA" else np.nan for c in row] for row in body])
+    res = intake.load(path, missing="mean")
+    assert res.columns_used == ["a", "b", "c", "d"]
+    complete = ~np.isnan(reference).any(axis=1)
+    assert np.array_equal(res.data[complete], reference[complete])
+    assert res.missing_per_column == {"a": 0, "b": 1, "c": 0, "d": 0}
+
+
+def test_dates_and_words_for_true_and_false_stay_text_in_csv(tmp_path):
+    # Our contract: only numbers are features; a column of dates or of true/false words
+    # is set aside with examples of its cells, as written.
+    text = "day,flag,x,y\n" + "".join(
+        f"2024-01-{i // 2 + 1:02d},{'true' if i % 2 else 'false'},{i * 1.5},{(i * 7) % 5 + 0.25}\n" for i in range(12)
+    )
+    res = intake.load(_tmp_file(text, "dates.csv"))
+    reasons = {e["column"]: e["reason"] for e in res.excluded}
+    assert "'2024-01-01'" in reasons["day"]
+    assert "'false'" in reasons["flag"] and "'true'" in reasons["flag"]
+    assert res.columns_used == ["x", "y"]
+
+
+def test_short_rows_are_read_by_the_lenient_reader(tmp_path):
+    # A row with a missing trailing field: the cell is empty (missing), not an error.
+    text = "a,b,c\n1,2,3\n4,5\n6,7,8.5\n9,1,2\n3,3,1\n"
+    res = intake.load(_tmp_file(text, "short.csv"))
+    assert res.rows_read == 5 and res.rows_used == 4
+    assert res.missing_per_column == {"a": 0, "b": 0, "c": 1}
+
+
+def test_parquet_typed_columns_are_read_by_their_types(tmp_path):
+    import hashlib
+
+    # Dates are set aside as dates (not a crash), integers with gaps are numbers with
+    # missing values, numbers stored as text are read as numbers.
+    n = 12
+    frame = pd.DataFrame({
+        "when": pd.date_range("2025-03-01", periods=n, freq="D"),
+        "count": pd.array([i % 5 if i != 3 else None for i in range(n)], dtype="Int64"),
+        "level": [str(0.5 * i + (i % 3)) for i in range(n)],
+        "ratio": np.linspace(0.1, 0.9, n) ** 2,
+    })
+    path = tmp_path / "typed.parquet"
+    frame.to_parquet(path)
+    res = intake.load(path)
+    reasons = {e["column"]: e["reason"] for e in res.excluded}
+    assert "dates" in reasons["when"]
+    assert res.columns_used == ["count", "level", "ratio"]
+    assert res.missing_per_column["count"] == 1 and res.rows_used == n - 1
+    np.testing.assert_array_equal(res.data[:, 1], [0.5 * i + (i % 3) for i in range(n) if i != 3])
+    # Source: hashlib.sha256 of the file's bytes.
+    assert res.sha256 == hashlib.sha256(path.read_bytes()).hexdigest()
+    from_frame = intake.load(frame)
+    assert "dates" in {e["column"]: e["reason"] for e in from_frame.excluded}["when"]
+    np.testing.assert_array_equal(from_frame.data, res.data)

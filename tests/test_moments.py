@@ -122,3 +122,34 @@ def test_large_offset_does_not_lose_precision():
     for part in np.array_split(x, 9):
         m.update(part)
     np.testing.assert_allclose(m.covariance(), np.cov(x, rowvar=False), rtol=1e-7)
+
+
+@pytest.mark.parametrize("block_rows", [1000, 8192, 50_000])
+def test_blocked_moments_of_a_long_table_far_from_zero_equal_numpy_and_scipy(block_rows):
+    # References: numpy.cov (divisor n - 1, two-pass) and scipy.stats.moment (central
+    # moments, divisor n). The table sits a million spreads from zero and spans several
+    # blocks, so the block merges and the centring are both exercised.
+    rng = np.random.default_rng(1979)
+    n, p = 20_000, 4
+    x = 1e6 + rng.standard_normal((n, p)) @ np.array([[1.0, 0.3, 0.0, 0.1], [0, 1, 0.5, 0], [0, 0, 1, 0.2], [0, 0, 0, 2.0]])
+    x = np.asfortranarray(x)
+    cols = [f"c{j}" for j in range(p)]
+    m = Moments.from_array(x, cols, block_rows=block_rows)
+    assert m.n == n
+    np.testing.assert_allclose(m.mean, x.mean(axis=0), rtol=1e-15)
+    np.testing.assert_allclose(m.covariance(), np.cov(x, rowvar=False), rtol=1e-11)
+    np.testing.assert_allclose(m.m3 / n, scipy.stats.moment(x, 3, axis=0), rtol=1e-7, atol=1e-12)
+    np.testing.assert_allclose(m.m4 / n, scipy.stats.moment(x, 4, axis=0), rtol=1e-11)
+    assert np.array_equal(m.minimum, x.min(axis=0)) and np.array_equal(m.maximum, x.max(axis=0))
+
+
+def test_rows_with_a_missing_value_are_counted_not_used():
+    # Reference: numpy.cov of the complete rows (numpy.isnan picks them).
+    rng = np.random.default_rng(5)
+    x = rng.standard_normal((30_000, 3))
+    x[[10, 9000, 25_000], [0, 2, 1]] = np.nan
+    m = Moments.from_array(x, ["a", "b", "c"], block_rows=4096)
+    complete = x[~np.isnan(x).any(axis=1)]
+    assert m.n == len(complete) == 29_997 and m.rows_seen == 30_000
+    assert list(m.missing) == [1, 1, 1]
+    np.testing.assert_allclose(m.covariance(), np.cov(complete, rowvar=False), rtol=1e-12)

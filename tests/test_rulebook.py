@@ -466,3 +466,20 @@ def test_format_rulebook_lists_every_rule_with_source():
     assert "fires when diagnostics.bartlett.p_value > 0.05" in text
     assert "fires when diagnostics.kmo.overall < 0.5" in text
     assert "bartlett_not_significant [blocker]" in text
+
+
+def test_a_rule_breaking_many_entries_names_the_worst_and_counts_the_rest():
+    # Our contract: beyond MAX_SUBJECTS findings of one rule, the worst ones are kept (in
+    # the figure's order) and one more finding counts the others.
+    from planner.rulebook import MAX_SUBJECTS
+
+    rule = make_rule()
+    values = {f"f{i:03d}": 10.5 + i for i in range(MAX_SUBJECTS + 7)}
+    values["calm"] = 2.0
+    findings = book(rule).evaluate({"diagnostics": {"vif": values}})
+    named = [f for f in findings if f["subject"] is not None]
+    assert len(named) == MAX_SUBJECTS
+    assert [f["subject"] for f in named] == [f"f{i:03d}" for i in range(7, MAX_SUBJECTS + 7)]
+    summary = [f for f in findings if f["subject"] is None]
+    assert len(summary) == 1 and summary[0]["more_subjects"] == 7
+    assert "7 more entries of diagnostics.vif" in summary[0]["message"]

@@ -56,9 +56,11 @@ def scaler_of_rows(method: str):
 
     def fit(train: np.ndarray):
         center = train.mean(axis=0)
-        sd = train.std(axis=0, ddof=1)
+        z = train - center
+        sd = np.sqrt(np.einsum("ij,ij->j", z, z) / (len(train) - 1))  # the sample SD, from the centred rows
         scale = scale_for(method, np.where(sd > 0, sd, 1.0), train)
-        return (train - center) / scale, lambda new: (new - center) / scale
+        z /= scale
+        return z, lambda new: (new - center) / scale
 
     return fit
 

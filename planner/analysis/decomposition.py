@@ -15,9 +15,9 @@ from __future__ import annotations
 from dataclasses import dataclass
 
 import numpy as np
-import scipy.stats
 
 from ..moments import Moments
+from .distributions import norm_ppf
 from .scaling import Scaling
 
 
@@ -158,7 +158,7 @@ def anderson_intervals(d: Decomposition, level: float = 0.95) -> Intervals:
     T. W. Anderson (1963), "Asymptotic theory for principal component analysis", Annals of
     Mathematical Statistics 34(1), 122-148.
     """
-    z = scipy.stats.norm.ppf(0.5 + level / 2)
+    z = norm_ppf(0.5 + level / 2)
     c = np.sqrt(2.0 / (d.n - 1))
     values = d.eigenvalues
     low = values / (1 + z * c)

@@ -79,8 +79,9 @@ def discarded_section(
     signal_share: float = 0.05,
 ) -> dict:
     """The ``discarded`` section of the record for ``k`` kept components."""
-    from .components import BOOTSTRAP_MAX_WORK, matrix_of_rows, scaler_of_rows
+    from .components import BOOTSTRAP_MAX_WORK, RESAMPLE_MAX_ROWS, matrix_of_rows, scaler_of_rows
     from .monitoring import contributions, row_figures, spe_limit, t2_limit
+    from .rowpass import largest_first, model_row_figures
     from .stability import loading_stability
     from .target import target_check
 
@@ -115,29 +116,30 @@ def discarded_section(
     if rows is None:
         section["rows_reason"] = "the rows were not kept: per-row figures are not available"
         return section
-    z = sc.transform(rows)
-    figures = row_figures(z, d.loadings, d.eigenvalues, k)
+    figures = model_row_figures(rows, sc.center, sc.scale, d.loadings, d.eigenvalues, k)
     spe_lim, t2_lim = section["spe_limit"], section["t2_limit"]
-    over_spe = figures.spe > spe_lim if spe_lim is not None else np.zeros(len(z), bool)
-    over_t2 = figures.t2 > t2_lim if t2_lim is not None else np.zeros(len(z), bool)
+    n_rows = len(figures.spe)
+    over_spe = figures.spe > spe_lim if spe_lim is not None else np.zeros(n_rows, bool)
+    over_t2 = figures.t2 > t2_lim if t2_lim is not None else np.zeros(n_rows, bool)
     section["rows_over_spe_limit"] = int(over_spe.sum())
     section["rows_over_t2_limit"] = int(over_t2.sum())
     section["rows_over_spe_limit_99"] = int((figures.spe > section["spe_limit_99"]).sum()) if section["spe_limit_99"] is not None else 0
     section["rows_over_t2_limit_99"] = int((figures.t2 > section["t2_limit_99"]).sum()) if section["t2_limit_99"] is not None else 0
     section["share_rows_over_spe_limit"] = float(over_spe.mean())
-    worst_spe = np.argsort(-figures.spe, kind="stable")[:WORST_ROWS]
+    worst_spe = largest_first(figures.spe, WORST_ROWS)
+    residuals = row_figures(sc.transform(rows[worst_spe]), d.loadings, d.eigenvalues, k).residual
     section["worst_spe"] = [
         {"row": int(row_numbers[i]), "label": labels[i], "spe": float(figures.spe[i]), "t2": float(figures.t2[i]),
-         "contributions": contributions(figures.residual[i], columns)}
-        for i in worst_spe
+         "contributions": contributions(residual, columns)}
+        for i, residual in zip(worst_spe, residuals)
     ]
-    worst_t2 = np.argsort(-figures.t2, kind="stable")[:WORST_ROWS]
+    worst_t2 = largest_first(figures.t2, WORST_ROWS)
     section["worst_t2"] = [
         {"row": int(row_numbers[i]), "label": labels[i], "t2": float(figures.t2[i]), "spe": float(figures.spe[i])} for i in worst_t2
     ]
     # All rows' two figures, for the chart (kept compact; beyond 5,000 rows a seeded sample).
     rng = np.random.default_rng([seed, 31])
-    pick = np.arange(len(z)) if len(z) <= 5000 else np.sort(rng.choice(len(z), 5000, replace=False))
+    pick = np.arange(n_rows) if n_rows <= 5000 else np.sort(rng.choice(n_rows, 5000, replace=False))
     section["row_figures_for_chart"] = {"spe": figures.spe[pick], "t2": figures.t2[pick]}
 
     if moments.n * moments.p**2 <= BOOTSTRAP_MAX_WORK and moments.p < moments.n:
@@ -159,7 +161,13 @@ def discarded_section(
             v = vt.T
             return lambda new: transform(new) @ v
 
-        check = target_check(rows, target, k, fit_scores, z @ d.loadings, target_name, seed, signal_share=signal_share)
+        check_rows, check_target, sample_note = rows, target, None
+        if len(rows) > RESAMPLE_MAX_ROWS:  # the refits of every fold on a seeded sample of rows
+            pick = np.sort(np.random.default_rng([seed, 33]).choice(len(rows), RESAMPLE_MAX_ROWS, replace=False))
+            check_rows, check_target = rows[pick], target[pick]
+            sample_note = f"on a seeded sample of {RESAMPLE_MAX_ROWS:,} of the {len(rows):,} rows"
+        check = target_check(check_rows, check_target, k, fit_scores, sc.transform(check_rows) @ d.loadings, target_name, seed,
+                             signal_share=signal_share)
         t = {
             "target": check.target,
             "kind": check.kind,
@@ -170,6 +178,8 @@ def discarded_section(
             "reason": check.reason,
             "note": check.note,
         }
+        if sample_note:
+            t["sample"] = sample_note
         if check.reason is None:
             if check.metric == "r2":
                 t["r2_all_features"] = check.all_features

@@ -5,7 +5,8 @@ from __future__ import annotations
 from dataclasses import dataclass
 
 import numpy as np
-import scipy.stats
+
+from .distributions import chi2_ppf, f_ppf, norm_ppf
 
 
 @dataclass
@@ -38,12 +39,12 @@ def spe_limit(residual_eigenvalues: np.ndarray, level: float = 0.95) -> SpeLimit
         return SpeLimit(level, 0.0, "no discarded variance: every row is reproduced exactly", None)
     h0 = 1.0 - 2.0 * theta1 * theta3 / (3.0 * theta2**2)
     if h0 > 0:
-        z = scipy.stats.norm.ppf(level)
+        z = norm_ppf(level)
         inner = z * np.sqrt(2.0 * theta2 * h0**2) / theta1 + 1.0 + theta2 * h0 * (h0 - 1.0) / theta1**2
         if inner > 0:
             return SpeLimit(level, float(theta1 * inner ** (1.0 / h0)), "Jackson and Mudholkar (1979)", float(h0))
     g, h = theta2 / theta1, theta1**2 / theta2
-    return SpeLimit(level, float(g * scipy.stats.chi2.ppf(level, h)), "Box (1954) g chi2(h), since h0 <= 0", float(h0))
+    return SpeLimit(level, float(g * chi2_ppf(level, h)), "Box (1954) g chi2(h), since h0 <= 0", float(h0))
 
 
 def t2_limit(k: int, n: int, level: float = 0.95) -> float | None:
@@ -52,7 +53,7 @@ def t2_limit(k: int, n: int, level: float = 0.95) -> float | None:
     """
     if n - k <= 0:
         return None
-    return float(k * (n - 1) / (n - k) * scipy.stats.f.ppf(level, k, n - k))
+    return float(k * (n - 1) / (n - k) * f_ppf(level, k, n - k))
 
 
 @dataclass

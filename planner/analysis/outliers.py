@@ -4,10 +4,11 @@ from __future__ import annotations
 from dataclasses import dataclass
 
 import numpy as np
-import scipy.stats
 
 from ..moments import Moments
 from .collinearity import Spectrum
+from .distributions import chi2_ppf
+from .rowpass import largest_first, mahalanobis_distances
 
 
 @dataclass
@@ -33,10 +34,7 @@ class OutlierScreen:
 
 def mahalanobis_d2(rows: np.ndarray, moments: Moments, spec: Spectrum) -> np.ndarray:
     """Squared Mahalanobis distances z^T R^+ z of rows, z standardized by the Moments."""
-    keep = spec.values > spec.tolerance
-    z = (rows - moments.mean) / moments.std()
-    scores = z @ spec.vectors[:, keep]
-    return np.sum(scores**2 / spec.values[keep], axis=1)
+    return mahalanobis_distances(rows, moments, spec)
 
 
 def mahalanobis_screen(
@@ -64,15 +62,25 @@ def mahalanobis_screen(
     leverage points", JASA 85(411), 633-639 (the 97.5% chi-squared cut-off).
     """
     n, p = moments.n, moments.p
-    method = "classical Mahalanobis distance"
     if p >= n:
+        return screen_of_distances(None, n, p, spec, labels, row_numbers, quantile, worst)
+    return screen_of_distances(mahalanobis_d2(rows, moments, spec), n, p, spec, labels, row_numbers, quantile, worst)
+
+
+def screen_of_distances(
+    d2: np.ndarray | None, n: int, p: int, spec: Spectrum, labels, row_numbers: np.ndarray, quantile: float = 0.975,
+    worst: int = 10,
+) -> OutlierScreen:
+    """The screen of :func:`mahalanobis_screen` from squared distances already computed."""
+    method = "classical Mahalanobis distance"
+    if p >= n or d2 is None:
         return OutlierScreen(method, quantile, None, None, None, None, [], f"undefined: {p} features and {n} rows (p >= n)")
     keep = spec.values > spec.tolerance
-    d2 = mahalanobis_d2(rows, moments, spec)
     df = int(keep.sum())
-    limit = float(scipy.stats.chi2.ppf(quantile, df))
+    limit = float(chi2_ppf(quantile, df))
     over = d2 > limit
-    order = np.argsort(-d2, kind="stable")[:worst]
+    order = largest_first(d2, worst)
     flagged = [FlaggedRow(int(row_numbers[i]), str(labels[i]), float(d2[i])) for i in order if over[i]]
     reason = None if keep.all() else f"R is singular: distances use its {df} non-null directions"
     return OutlierScreen(method, quantile, df, limit, int(over.sum()), float(over.mean()), flagged, reason)
+

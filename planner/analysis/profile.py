@@ -36,22 +36,21 @@ def column_profiles(moments: Moments) -> list[ColumnProfile]:
     std = moments.std()
     skew = moments.skewness()
     kurt = moments.excess_kurtosis()
-    out = []
-    for j, col in enumerate(moments.columns):
-        mean = float(moments.mean[j])
-        out.append(
-            ColumnProfile(
-                column=col,
-                n=int(moments.n),
-                missing=int(moments.missing[j]),
-                mean=mean,
-                std=float(std[j]),
-                cv=float(std[j] / abs(mean)) if mean != 0 else None,
-                minimum=float(moments.minimum[j]),
-                maximum=float(moments.maximum[j]),
-                zero_share=float(moments.zeros[j] / moments.n) if moments.n else 0.0,
-                skewness=float(skew[j]) if np.isfinite(skew[j]) else None,
-                excess_kurtosis=float(kurt[j]) if np.isfinite(kurt[j]) else None,
-            )
+    n = int(moments.n)
+    mean = moments.mean
+    with np.errstate(divide="ignore", invalid="ignore"):
+        cv = std / np.abs(mean)
+        zero_share = moments.zeros / moments.n if moments.n else np.zeros(moments.p)
+    # Plain Python numbers, column by column (tolist() once per figure, not per value).
+    rows = zip(
+        moments.columns, moments.missing.tolist(), mean.tolist(), std.tolist(), cv.tolist(), (mean == 0).tolist(),
+        moments.minimum.tolist(), moments.maximum.tolist(), np.asarray(zero_share, float).tolist(),
+        skew.tolist(), np.isfinite(skew).tolist(), kurt.tolist(), np.isfinite(kurt).tolist(),
+    )
+    return [
+        ColumnProfile(
+            column=col, n=n, missing=int(miss), mean=m, std=s, cv=None if zero_mean else c, minimum=lo, maximum=hi,
+            zero_share=z, skewness=sk if sk_ok else None, excess_kurtosis=ku if ku_ok else None,
         )
-    return out
+        for col, miss, m, s, c, zero_mean, lo, hi, z, sk, sk_ok, ku, ku_ok in rows
+    ]

@@ -10,10 +10,9 @@ import math
 from dataclasses import dataclass, field
 
 import numpy as np
-import scipy.integrate
-import scipy.linalg
-import scipy.optimize
 import scipy.special
+
+from .random_matrix import marchenko_pastur_median, marchenko_pastur_null
 
 #: Minka's evidence is evaluated at every rank up to this many features, else up to MINKA_MAX_RANK.
 MINKA_FULL_FEATURES = 500
@@ -201,6 +200,7 @@ def parallel_analysis(
     percentile: float = 95.0,
     permuted_rows: np.ndarray | None = None,
     make_matrix=None,
+    sequential: bool = True,
 ) -> RuleResult:
     """Horn's parallel analysis: keep components above the null eigenvalues' percentile.
 
@@ -212,6 +212,14 @@ def parallel_analysis(
     permuted table into the matrix decomposed). When p >= n the Wishart dual of dimension
     n - 1 is used (its non-zero eigenvalues are those of the p x p null).
 
+    The Wishart draws are sequential (Besag and Clifford 1991): after the first
+    PA_FIRST_DRAWS and every PA_STEP_DRAWS more, the draws stop once the decision is
+    settled, that is once, for every component up to the first one not kept, the 99.9%
+    Clopper-Pearson interval of the share of null eigenvalues above it lies wholly on one
+    side of 5%; else they go on to ``draws``. Clear-cut tables thus need a fifth of the
+    draws, close calls all of them. The record gives the number of draws used. With
+    ``sequential=False`` all ``draws`` are made.
+
     References
     ----------
     J. L. Horn (1965), "A rationale and test for the number of factors in factor
@@ -219,6 +227,10 @@ def parallel_analysis(
     L. W. Glorfeld (1995), "An improvement on Horn's parallel analysis methodology for
     selecting the correct number of factors to retain", Educational and Psychological
     Measurement 55(3), 377-393.
+    J. Besag and P. Clifford (1991), "Sequential Monte Carlo p-values", Biometrika 78(2),
+    301-304.
+    C. J. Clopper and E. S. Pearson (1934), "The use of confidence or fiducial limits
+    illustrated in the case of the binomial", Biometrika 26(4), 404-413.
     """
     lam = np.asarray(eigenvalues, float)
     q = len(lam)
@@ -242,16 +254,23 @@ def parallel_analysis(
             null[b] = np.clip(np.linalg.eigvalsh(make_matrix(x))[::-1][:q], 0, None)
         method = "column permutation of the data"
     elif p < n:
-        null = wishart_null_eigenvalues(p, n - 1, draws, rng, correlation=standardized, variances=None if standardized else variances)
-        method = "Wishart(n - 1, I) by the Bartlett decomposition"
+        def draw(count):
+            return wishart_null_eigenvalues(p, n - 1, count, rng, correlation=standardized,
+                                            variances=None if standardized else variances)
+
+        null = sequential_null(draw, lam, draws, percentile) if sequential else draw(draws)
+        method = "Wishart(n - 1, I) by the Bartlett decomposition, sequential draws"
     else:
-        m = n - 1
-        dual = wishart_null_eigenvalues(m, p, draws, rng, correlation=False)
-        null = dual * (p / (n - 1))  # eigenvalues of X^T X / (n - 1) for X of shape (n - 1, p)
-        if not standardized and variances is not None:
-            null = null * float(np.mean(variances))
-        null = null[:, :q]
-        method = "Wishart dual of dimension n - 1 (p >= n)"
+        def draw(count):
+            dual = wishart_null_eigenvalues(n - 1, p, count, rng, correlation=False)
+            null = dual * (p / (n - 1))  # eigenvalues of X^T X / (n - 1) for X of shape (n - 1, p)
+            if not standardized and variances is not None:
+                null = null * float(np.mean(variances))
+            return null[:, :q]
+
+        null = sequential_null(draw, lam, draws, percentile) if sequential else draw(draws)
+        method = "Wishart dual of dimension n - 1 (p >= n), sequential draws"
+    draws = null.shape[0]
     upper = np.percentile(null, percentile, axis=0)
     mean = null.mean(axis=0)
     k = _leading_run(lam > upper)
@@ -262,6 +281,48 @@ def parallel_analysis(
         {"method": method, "draws": draws, "percentile": percentile, "null_percentile": upper, "null_mean": mean,
          "k_mean": _leading_run(lam > mean)},
     )
+
+
+#: Sequential parallel analysis: first look, step between looks, confidence of a settled call.
+PA_FIRST_DRAWS = 200
+PA_STEP_DRAWS = 100
+PA_CONFIDENCE = 0.999
+
+
+def clopper_pearson(successes: np.ndarray, trials: int, confidence: float) -> tuple[np.ndarray, np.ndarray]:
+    """Exact two-sided binomial confidence interval for a proportion (Clopper and Pearson
+    1934), from the beta quantiles."""
+    e = np.asarray(successes, float)
+    tail = (1.0 - confidence) / 2.0
+    with np.errstate(invalid="ignore"):
+        low = np.where(e > 0, scipy.special.betaincinv(e, trials - e + 1, tail), 0.0)
+        high = np.where(e < trials, scipy.special.betaincinv(e + 1, trials - e, 1.0 - tail), 1.0)
+    return low, high
+
+
+def decision_settled(lam: np.ndarray, null: np.ndarray, percentile: float, confidence: float = PA_CONFIDENCE) -> bool:
+    """Whether more null draws could still change the leading-run decision: every component
+    up to the first one not kept must lie clearly above (or, for that one, clearly below)
+    the null percentile, judged by the interval of the share of draws at or above it."""
+    alpha = 1.0 - percentile / 100.0
+    above = (null >= lam[: null.shape[1]]).sum(axis=0)
+    low, high = clopper_pearson(above, null.shape[0], confidence)
+    for i in range(null.shape[1]):
+        if high[i] < alpha:  # clearly above the null percentile: kept, look at the next one
+            continue
+        return bool(low[i] > alpha)  # the first one not clearly kept must be clearly not kept
+    return True
+
+
+def sequential_null(draw, lam: np.ndarray, max_draws: int, percentile: float) -> np.ndarray:
+    """Null eigenvalues from ``draw(count)`` in steps until :func:`decision_settled`, or
+    ``max_draws`` (Besag and Clifford 1991)."""
+    parts = [draw(min(PA_FIRST_DRAWS, max_draws))]
+    total = len(parts[0])
+    while total < max_draws and not decision_settled(lam, np.concatenate(parts), percentile):
+        parts.append(draw(min(PA_STEP_DRAWS, max_draws - total)))
+        total += len(parts[-1])
+    return np.concatenate(parts)
 
 
 # ---------------------------------------------------------------------- broken stick
@@ -386,19 +447,6 @@ def minka(eigenvalues: np.ndarray, n: int, p: int) -> RuleResult:
 
 
 # ---------------------------------------------------------------------- Gavish-Donoho
-def marchenko_pastur_median(beta: float) -> float:
-    """Median of the Marchenko-Pastur distribution with aspect ratio beta in (0, 1]."""
-    lo, hi = (1 - math.sqrt(beta)) ** 2, (1 + math.sqrt(beta)) ** 2
-
-    def density(t):
-        return math.sqrt(max((hi - t) * (t - lo), 0.0)) / (2 * math.pi * beta * t)
-
-    def cdf(x):
-        return scipy.integrate.quad(density, lo, x, limit=200)[0]
-
-    return float(scipy.optimize.brentq(lambda x: cdf(x) - 0.5, lo, hi, xtol=1e-12))
-
-
 def gavish_donoho_omega(beta: float) -> float:
     """omega(beta) = lambda*(beta) / sqrt(mu_beta): the optimal hard threshold coefficient
     for unknown noise, with lambda*(beta) = sqrt(2(beta + 1) + 8 beta / (beta + 1 +
@@ -440,30 +488,38 @@ def ekf_press(train_loadings: np.ndarray, z_test: np.ndarray, kmax: int) -> np.n
     the leave-one-out prediction of the regression of x on P_k, so the error is
     e_j / (1 - h_jj) with e = x - P_k P_k^T x and h_jj = sum_c P_jc^2.
     """
+    from scipy.linalg.blas import dger
+
     press = np.zeros(kmax + 1)
-    residual = z_test.copy()
+    residual = np.array(z_test, dtype=np.float64, order="F")  # a copy, updated in place below
     lever = np.zeros(train_loadings.shape[0])
-    press[0] = float(np.sum(residual**2))
+    press[0] = float(np.sum(np.einsum("ij,ij->j", residual, residual)))
     for k in range(1, kmax + 1):
-        pk = train_loadings[:, k - 1]
-        residual -= np.outer(residual @ pk, pk)
+        pk = np.ascontiguousarray(train_loadings[:, k - 1])
+        residual = dger(-1.0, residual @ pk, pk, a=residual, overwrite_a=True)  # residual -= (residual pk) pk^T
         lever += pk**2
         denom = 1.0 - lever
         if np.any(denom < 1e-10):
             press[k:] = np.inf
             break
-        press[k] = float(np.sum((residual / denom) ** 2))
+        press[k] = float(np.einsum("ij,ij->j", residual, residual) @ (1.0 / denom**2))
     return press
 
 
 def leading_loadings(centred: np.ndarray, k: int) -> np.ndarray:
-    """The first k right singular vectors of centred rows: from the p x p cross-product with
-    a partial symmetric eigensolver when there are more rows than features, from the n x n
-    Gram matrix when there are far more features than rows, else by SVD."""
+    """The first k right singular vectors of centred rows: from the p x p cross-product
+    when there are more rows than features (a partial symmetric eigensolver when k is small
+    against p), from the n x n Gram matrix when there are far more features than rows,
+    else by SVD."""
     n, p = centred.shape
     if n > p and p > 2 * k:
+        import scipy.linalg
+
         values, vectors = scipy.linalg.eigh(centred.T @ centred, subset_by_index=[p - k, p - 1])
         return vectors[:, ::-1]
+    if n > p:
+        values, vectors = np.linalg.eigh(centred.T @ centred)
+        return vectors[:, ::-1][:, :k]
     if p > 2 * n:  # the n x n Gram matrix: V = Z^T U / s
         values, vectors = np.linalg.eigh(centred @ centred.T)
         order = np.argsort(values)[::-1][:k]
@@ -508,8 +564,8 @@ def cross_validation(
     for part in parts:
         mask = np.ones(n, dtype=bool)
         mask[part] = False
-        z_train, scale_new = scale_fn(rows[mask])
-        press += ekf_press(leading_loadings(z_train - z_train.mean(axis=0), kmax), scale_new(rows[part]), kmax)
+        z_train, scale_new = scale_fn(rows[mask])  # centred on the training rows' own mean
+        press += ekf_press(leading_loadings(z_train, kmax), scale_new(rows[part]), kmax)
     k = int(np.argmin(press))
     evidence = {"method": "row-wise k-fold, element-wise prediction (ekf)", "folds": folds, "press": press}
     if sample_note:

@@ -4,9 +4,9 @@ from __future__ import annotations
 from dataclasses import dataclass
 
 import numpy as np
-import scipy.stats
 
 from .collinearity import Spectrum
+from .distributions import chi2_sf
 
 CAVEAT = (
     "For large n the test rejects sphericity almost always, even for weak correlations: "
@@ -46,5 +46,5 @@ def bartlett_sphericity(n: int, p: int, spec: Spectrum) -> BartlettResult:
         return BartlettResult(None, df, None, None, f"undefined: n - 1 - (2p + 5)/6 = {multiplier:.3g} <= 0")
     log_det = float(np.sum(np.log(spec.values)))
     statistic = -multiplier * log_det
-    p_value = float(scipy.stats.chi2.sf(statistic, df))
+    p_value = float(chi2_sf(statistic, df))
     return BartlettResult(float(statistic), df, p_value, log_det, None)

@@ -12,7 +12,6 @@ from __future__ import annotations
 from dataclasses import dataclass, field
 
 import numpy as np
-import scipy.stats
 
 FOLDS = 5
 #: A discarded component whose scores explain more than this share of the target's variance
@@ -22,6 +21,8 @@ SIGNAL_SHARE = 0.05
 
 def auc(y: np.ndarray, score: np.ndarray) -> float:
     """Area under the ROC curve by the Mann-Whitney rank formula (ties count half)."""
+    import scipy.stats  # imported here: only audits with a target need it
+
     ranks = scipy.stats.rankdata(score)
     pos = y == 1
     n1, n0 = int(pos.sum()), int((~pos).sum())
@@ -95,6 +96,8 @@ def target_check(
     ``full_scores`` are the scores of all rows on every component of the full-data model,
     for the correlations of the components with the target.
     """
+    import scipy.stats  # imported here: only audits with a target need it
+
     present = ~np.isnan(y)
     note = None
     if not present.all():
