@@ -123,20 +123,23 @@ def dumps(record: dict) -> str:
     return "".join(parts)
 
 
-def _scalar(value) -> bool:
-    return not isinstance(value, (dict, list))
+_CONTAINERS = {dict, list}
 
 
 def _flat(value) -> bool:
     """Written on one line: a scalar, a list of scalars, an object of scalars (a map of a
     figure by feature), or a small object of scalars and lists of scalars (a finding, a
-    row, a column's profile)."""
+    row, a column's profile). The type sets are built in C (map), not value by value."""
     if isinstance(value, list):
-        return all(_scalar(v) for v in value)
+        return _CONTAINERS.isdisjoint(set(map(type, value)))
     if isinstance(value, dict):
-        if all(_scalar(v) for v in value.values()):
+        kinds = set(map(type, value.values()))
+        if _CONTAINERS.isdisjoint(kinds):
             return True
-        return len(value) <= 16 and all(_scalar(v) or (isinstance(v, list) and all(_scalar(x) for x in v)) for v in value.values())
+        return (
+            len(value) <= 16 and dict not in kinds
+            and all(_CONTAINERS.isdisjoint(set(map(type, v))) for v in value.values() if type(v) is list)
+        )
     return True
 
 

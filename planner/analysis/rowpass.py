@@ -65,7 +65,7 @@ def model_row_figures(
         stop = start + len(z)
         with np.errstate(invalid="ignore"):
             t2[start:stop] = (t * t) @ inverse_eigen
-        z -= t @ p_k.T
+        z -= (p_k @ t.T).T  # laid out like z (column-major), so the subtraction streams
         spe[start:stop] = np.einsum("ij,ij->i", z, z)
     return ModelRowFigures(spe, t2)
 
