@@ -60,7 +60,10 @@ def _add_audit_options(p: argparse.ArgumentParser) -> None:
     p.add_argument("--target", default=None, help="outcome column for the target check; never reduced")
     p.add_argument("--scaling", default="auto", choices=["auto", "standardize", "center", "robust", "pareto"])
     p.add_argument("--components", default="auto", type=_components, help="'auto' or a number N (needs --because)")
-    p.add_argument("--because", default=None, help="reason for overriding the recommended number of components")
+    p.add_argument("--because", default=None, help="reason for overriding a recommendation (--components N, or --plan against it)")
+    p.add_argument("--plan", default=None, choices=["components", "feature_subset", "vif_pruning"],
+                   help="the reduction taken (default components): the components, a subset of original features, "
+                        "or the features left by VIF pruning; --because is needed against the recommended plan")
     p.add_argument("--missing", default="listwise", choices=["listwise", "mean", "fail"])
     p.add_argument("--rules", default=None, help="a rulebook TOML file replacing the default one")
     p.add_argument("--seed", default=0, type=_seed, help="seed for every random step (default 0)")
@@ -133,6 +136,7 @@ def cmd_audit(args, argv: list[str]) -> int:
         scaling=args.scaling,
         components=args.components,
         because=args.because,
+        plan=args.plan,
         missing=args.missing,
         rules=args.rules,
         seed=args.seed,
@@ -193,8 +197,9 @@ def cmd_apply(args, argv: list[str]) -> int:
     from .ledger import apply_file
 
     summary = apply_file(args.record, args.data, args.out, allow_draft=args.allow_draft, force=args.force)
-    print(f"wrote {summary['out']}: {summary['rows']} row(s), {summary['components']} component(s), "
-          f"{summary['beyond_limit']} beyond a 95% limit")
+    what = (f"{summary['components']} component(s)" if summary["plan"] == "components"
+            else f"plan {summary['plan']}: {summary['components']} original feature(s)")
+    print(f"wrote {summary['out']}: {summary['rows']} row(s), {what}, {summary['beyond_limit']} beyond a 95% limit")
     if summary["incomplete_rows"]:
         print(f"  {summary['incomplete_rows']} row(s) have a missing feature value: their scores are empty")
     if summary["extra_columns"]:

@@ -98,7 +98,8 @@ def run_dask_audit(source, options):
     from .analysis.discarded import discarded_section
     from .analysis.monitoring import contributions, row_figures
     from .analysis.outliers import FlaggedRow, OutlierScreen
-    from .pipeline import AuditResult, build_record, choose_components, scaling_for, thresholds_from
+    from .pipeline import (AuditResult, alternatives_for, build_record, choose_components, feature_plans_of, plan_sections,
+                           scaling_for, thresholds_from)
     from .record import seal
     from .rulebook import load_rulebook
 
@@ -149,10 +150,12 @@ def run_dask_audit(source, options):
                                       share=float(rulebook.threshold("kept_share_low", 0.80)),
                                       permutation=options.parallel_null == "permutation")
         chosen, override = choose_components(evidence, options)
+        alternatives = alternatives_for(evidence, chosen, moments, rulebook)
         disc = discarded_section(evidence, chosen, moments, sample, sample_labels, numbers[order],
                                  floor=float(rulebook.threshold("feature_poorly_represented", 0.5)), seed=options.seed,
                                  target=sample_y, target_name=target,
-                                 signal_share=float(rulebook.threshold("target_signal_discarded", 0.05)))
+                                 signal_share=float(rulebook.threshold("target_signal_discarded", 0.05)),
+                                 feature_plans=feature_plans_of(alternatives))
         d = evidence.decomposition
         model = {"scaling": scaling, "loadings": d.loadings, "eigenvalues": d.eigenvalues, "k": chosen, "moments": moments,
                  "spectrum": spec, "spe_limits": [disc["spe_limit"], disc["spe_limit_99"]],
@@ -190,7 +193,8 @@ def run_dask_audit(source, options):
     disc["worst_spe"] = worst
     disc["worst_t2"] = [{"row": r, "label": lab, "t2": v, "spe": None} for v, lab, _, r in t2_top]
     sections = {"diagnostics": diag_section, "decomposition": decomposition_section(evidence, list(features)),
-                "components": components_section(evidence, chosen, override), "discarded": disc}
+                "components": components_section(evidence, chosen, override), "discarded": disc,
+                **plan_sections(alternatives, options, rulebook, list(features), disc.get("target"))}
     import dataclasses
     import hashlib
 

@@ -85,7 +85,7 @@ def sign_file(path: str | Path, name: str, role: str, meaning: str, key_path: st
 def apply_file(record_path: str | Path, data_path: str | Path, out: str | Path, allow_draft: bool = False, force: bool = False) -> dict:
     """Score new rows with the recorded plan and write them as CSV; return a summary."""
     from .intake import read_table
-    from .plan import ReductionPlan
+    from .plan import plan_from_record
 
     record = read_record(record_path)
     result = verify_record(record)
@@ -102,7 +102,7 @@ def apply_file(record_path: str | Path, data_path: str | Path, out: str | Path, 
     header, cells, _meta = read_table(data_path)
     if len(set(header)) != len(header):
         raise InputError(f"{Path(data_path).name} has duplicate column names", "give every column a distinct name")
-    plan = ReductionPlan.from_record(record)
+    plan = plan_from_record(record)
     missing = [c for c in plan.columns if c not in header]
     if missing:
         raise InputError(
@@ -130,5 +130,6 @@ def apply_file(record_path: str | Path, data_path: str | Path, out: str | Path, 
     write_bytes_atomic(out, buffer.getvalue().encode("utf-8"))
     extra = [c for c in header if c not in plan.columns and c != plan.id_column]
     incomplete = int(scored["spe"].isna().sum())
-    return {"rows": len(scored), "components": plan.k, "extra_columns": extra, "incomplete_rows": incomplete,
+    return {"rows": len(scored), "components": plan.k, "plan": getattr(plan, "plan_id", "components"),
+            "kept": list(plan.get_feature_names_out()), "extra_columns": extra, "incomplete_rows": incomplete,
             "beyond_limit": int(scored["beyond_limit"].fillna(0).sum()), "out": str(out)}

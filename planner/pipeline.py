@@ -23,6 +23,7 @@ from .record import SCHEMA_VERSION, jsonable, new_record_id, seal, utc_now
 from .rulebook import Rulebook, load_rulebook
 
 SCALINGS = ("auto", "standardize", "center", "robust", "pareto")
+PLANS = ("components", "feature_subset", "vif_pruning")
 ENGINES = ("auto", "memory", "stream", "dask")
 
 
@@ -39,6 +40,7 @@ class AuditOptions:
     scaling: str = "auto"
     components: int | str = "auto"
     because: str | None = None
+    plan: str | None = None
     missing: str = "listwise"
     rules: str | None = None
     seed: int = 0
@@ -59,8 +61,12 @@ class AuditOptions:
                 raise InputError(f"--components must be at least 1, got {self.components}", "give a positive number of components")
             if not (self.because and self.because.strip()):
                 raise InputError("--components N overrides the recommendation and needs --because TEXT", "say why, e.g. --because 'fixed by the model spec'")
-        elif self.because is not None and self.components == "auto":
-            raise InputError("--because only goes with --components N", "drop --because or give --components N")
+        elif self.because is not None and self.components == "auto" and self.plan is None:
+            raise InputError("--because only goes with --components N or --plan", "drop --because, or give --components N or --plan")
+        if self.plan is not None and self.plan not in PLANS:
+            raise InputError(f"unknown plan {self.plan!r}", f"use one of: {', '.join(PLANS)}")
+        if self.because is not None and not self.because.strip():
+            raise InputError("--because is empty", "say why, e.g. --because 'fixed by the model spec'")
         if isinstance(self.seed, bool) or not isinstance(self.seed, (int, np.integer)) or self.seed < 0:
             raise InputError(f"--seed must be a whole number >= 0, got {self.seed!r}", "for example --seed 7")
         if self.engine not in ENGINES:
@@ -114,9 +120,19 @@ def intake_findings(result: intake_mod.IntakeResult) -> list[dict]:
 _SEVERITY_ORDER = {"blocker": 0, "caution": 1, "note": 2}
 
 
-def audit_events(created: str, options: AuditOptions, override: dict | None) -> list[dict]:
+def audit_events(created: str, options: AuditOptions, override: dict | None, plan_choice: dict | None = None) -> list[dict]:
     """The events up to the record's creation, inside the hashed body (DESIGN.md)."""
     events = [{"event": "created", "at": created, "by": options.analyst, "detail": "record created by audit"}]
+    if plan_choice and plan_choice.get("overridden"):
+        events.append(
+            {
+                "event": "override",
+                "at": created,
+                "by": options.analyst,
+                "detail": f"plan {plan_choice['chosen']} instead of the recommended {plan_choice['recommended']}",
+                "because": plan_choice["because"],
+            }
+        )
     if override:
         events.append(
             {
@@ -140,10 +156,10 @@ class AuditResult:
 
     @property
     def plan(self):
-        """The reduction plan of the record (``transform``, ``get_feature_names_out``)."""
-        from .plan import ReductionPlan
+        """The chosen reduction plan of the record (``transform``, ``get_feature_names_out``)."""
+        from .plan import plan_from_record
 
-        return ReductionPlan.from_record(self.record)
+        return plan_from_record(self.record)
 
     def summary(self) -> str:
         from .render.summary import render_summary
@@ -197,6 +213,7 @@ def build_record(
         "options": {
             "scaling": options.scaling,
             "components": options.components,
+            "plan": options.plan,
             "missing": options.missing,
             "seed": int(options.seed),
             "parallel_null": options.parallel_null,
@@ -212,7 +229,7 @@ def build_record(
             "software": software_versions(),
             "platform": f"{platform.system()} {platform.machine()}",
         },
-        "audit_trail": audit_events(created, options, sections["components"].get("override")),
+        "audit_trail": audit_events(created, options, sections["components"].get("override"), sections.get("plan_choice")),
         "findings": [],
         "signoffs": [],
     }
@@ -281,23 +298,27 @@ def run_audit(source, options: AuditOptions | None = None) -> AuditResult:
         permutation=options.parallel_null == "permutation",
     )
     chosen, override = choose_components(evidence, options)
+    alternatives = alternatives_for(evidence, chosen, moments, rulebook)
+    discarded = discarded_section(
+        evidence,
+        chosen,
+        moments,
+        result.data,
+        result.row_labels,
+        result.row_numbers,
+        floor=float(rulebook.threshold("feature_poorly_represented", 0.5)),
+        seed=options.seed,
+        target=result.target,
+        target_name=result.target_name,
+        signal_share=float(rulebook.threshold("target_signal_discarded", 0.05)),
+        feature_plans=feature_plans_of(alternatives),
+    )
     sections = {
         "diagnostics": diag_section,
         "decomposition": decomposition_section(evidence, result.columns_used),
         "components": components_section(evidence, chosen, override),
-        "discarded": discarded_section(
-            evidence,
-            chosen,
-            moments,
-            result.data,
-            result.row_labels,
-            result.row_numbers,
-            floor=float(rulebook.threshold("feature_poorly_represented", 0.5)),
-            seed=options.seed,
-            target=result.target,
-            target_name=result.target_name,
-            signal_share=float(rulebook.threshold("target_signal_discarded", 0.05)),
-        ),
+        "discarded": discarded,
+        **plan_sections(alternatives, options, rulebook, result.columns_used, discarded.get("target")),
     }
     record = build_record(result, moments, options, rulebook, sections)
     return AuditResult(record=record, intake=result, moments=moments)
@@ -357,3 +378,51 @@ def scaling_for(requested: str, moments: Moments, rows, diagnostics: dict, ruleb
     method, reasons = choose_scaling(evidence)
     return make_scaling(method, moments, rows, reasons, "auto")
 
+
+
+def alternatives_for(evidence, chosen: int, moments: Moments, rulebook: Rulebook):
+    """The plans that keep original features, beside the component plan (from the matrices)."""
+    from .analysis.alternatives import plan_alternatives
+
+    d = evidence.decomposition
+    vif_threshold = float(rulebook.threshold("vif_high", 10.0))
+    if not moments.full or moments.p >= moments.n:
+        why = ("undefined: p >= n, every set of n features is dependent" if moments.p >= moments.n
+               else "not computed: no p x p matrix is formed for a table this wide")
+        return plan_alternatives(None, None, d.loadings, d.explained_ratio, chosen, vif_threshold, reason=why)
+    c = evidence.scaling.matrix(moments)
+    r = moments.correlation()
+    return plan_alternatives(c, r, d.loadings, d.explained_ratio, chosen, vif_threshold)
+
+
+def feature_plans_of(alternatives) -> dict[str, list[int]]:
+    """The columns each feature plan keeps, for the target check's folds."""
+    plans = {"feature_subset": alternatives.subset_plan, "vif_pruning": alternatives.pruning_plan}
+    return {plan_id: plan.kept for plan_id, plan in plans.items() if plan is not None}
+
+
+def plan_sections(alternatives, options: AuditOptions, rulebook: Rulebook, columns: list[str], target: dict | None) -> dict:
+    """``alternatives`` and ``plan_choice``: the plan asked for, else the component plan; a
+    plan asked for against the recommendation needs ``--because``."""
+    from .analysis.alternatives import alternatives_section, choose_plan
+
+    size_ratio = float(rulebook.threshold("subset_plan_within_reach", 1.5))
+    vif_threshold = float(rulebook.threshold("vif_high", 10.0))
+    choice = choose_plan(alternatives, options.plan, options.because.strip() if options.because else None, size_ratio, vif_threshold)
+    if options.plan is not None and options.plan != "components":
+        plan = alternatives.subset_plan if options.plan == "feature_subset" else alternatives.pruning_plan
+        if plan is None:
+            raise InputError(f"--plan {options.plan} cannot be formed for this table ({alternatives.reason})", "use --plan components")
+    if options.plan is not None and choice.chosen != choice.recommended and not choice.because:
+        raise InputError(
+            f"--plan {choice.chosen} goes against the recommended plan ({choice.recommended}) and needs --because TEXT",
+            "say why, e.g. --because 'the model must use measured features'",
+        )
+    section = alternatives_section(alternatives, choice, columns, target, size_ratio, vif_threshold)
+    decision = section["plan_choice"]
+    decision["overridden"] = options.plan is not None and choice.chosen != choice.recommended
+    if options.plan is None and choice.recommended != "components":
+        decision["reasons"].append(
+            f"the component plan was taken by default (no --plan); choose the recommended one with --plan {choice.recommended}"
+        )
+    return section

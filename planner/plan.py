@@ -103,3 +103,85 @@ class ReductionPlan:
         flag[np.isnan(spe)] = pd.NA
         out["beyond_limit"] = flag
         return out
+
+
+@dataclass
+class FeaturePlan:
+    """A recorded plan that keeps original features (``feature_subset`` or ``vif_pruning``).
+
+    ``transform`` gives the kept columns as they are; ``score_rows`` adds the SPE of the
+    row's reconstruction from them, z_hat = z_kept B in the scaled units of the record
+    (z = (x - center) / scale), and a flag beyond the plan's 95% SPE limit.
+    """
+
+    plan_id: str
+    columns: list[str]
+    kept: list[str]
+    center: np.ndarray
+    scale: np.ndarray
+    coefficients: np.ndarray  # (len(kept), len(columns))
+    spe_limit: float | None
+    id_column: str | None = None
+    record_id: str | None = None
+    status: str | None = None
+
+    @classmethod
+    def from_record(cls, record: dict, plan_id: str) -> "FeaturePlan":
+        row = next(r for r in record["alternatives"] if r["plan_id"] == plan_id)
+        dec = record["decomposition"]
+        columns = list(record["input"]["columns_used"])
+        rec = row["reconstruction"]
+        return cls(
+            plan_id=plan_id,
+            columns=columns,
+            kept=list(rec["kept"]),
+            center=np.array([dec["center"][c] for c in columns], dtype=float),
+            scale=np.array([dec["scale"][c] for c in columns], dtype=float),
+            coefficients=np.array(rec["coefficients"], dtype=float).reshape(len(rec["kept"]), len(columns)),
+            spe_limit=rec.get("spe_limit"),
+            id_column=record["input"].get("id_column"),
+            record_id=record.get("record_id"),
+            status=record.get("status"),
+        )
+
+    @property
+    def k(self) -> int:
+        return len(self.kept)
+
+    def get_feature_names_out(self, input_features=None) -> np.ndarray:
+        return np.array(self.kept, dtype=object)
+
+    def fit(self, x=None, y=None) -> "FeaturePlan":
+        """A recorded plan is already fitted; present for pipeline compatibility."""
+        return self
+
+    def _matrix(self, frame) -> np.ndarray:
+        return ReductionPlan._matrix(self, frame)  # the same checks: every feature column is read
+
+    def transform(self, frame) -> np.ndarray:
+        """The kept columns of the rows, in their own units."""
+        x = self._matrix(frame)
+        return x[:, [self.columns.index(c) for c in self.kept]]
+
+    def score_rows(self, frame) -> pd.DataFrame:
+        """The kept columns, ``spe`` and ``beyond_limit`` (1 beyond the 95% SPE limit)."""
+        x = self._matrix(frame)
+        z = (x - self.center) / self.scale
+        kept = [self.columns.index(c) for c in self.kept]
+        residual = z - z[:, kept] @ self.coefficients
+        spe = np.sum(residual**2, axis=1)
+        out = pd.DataFrame(x[:, kept], columns=self.kept)
+        out["spe"] = spe
+        beyond = spe > self.spe_limit if self.spe_limit is not None else np.zeros(len(out), dtype=bool)
+        flag = pd.Series(beyond.astype(int), dtype="Int64")
+        flag[np.isnan(spe)] = pd.NA
+        out["beyond_limit"] = flag
+        return out
+
+
+def plan_from_record(record: dict):
+    """The plan the record chose: the components, or a plan that keeps original features."""
+    chosen = (record.get("plan_choice") or {}).get("chosen", "components")
+    if chosen == "components":
+        return ReductionPlan.from_record(record)
+    return FeaturePlan.from_record(record, chosen)

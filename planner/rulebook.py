@@ -69,6 +69,8 @@ KNOWN_FIGURES: dict[str, str] = {
     "discarded.rows_over_t2_limit": "rows beyond the 95% Hotelling T-squared limit",
     "discarded.target.max_discarded_share": "largest share of the target's variance explained by one discarded component",
     "discarded.target.loss": "cross-validated fit on all features minus the fit on the kept components",
+    "plan_choice.size_ratio": "features the feature-subset plan needs per kept component",
+    "plan_choice.overridden": "true when --plan chose against the recommended plan",
 }
 
 COMPARISONS: tuple[str, ...] = (">", ">=", "<", "<=", "==", "!=")

@@ -49,6 +49,8 @@ DEFAULT_IDS = [
     "spe_rows_many",
     "target_signal_discarded",
     "target_fit_lost",
+    "subset_plan_within_reach",
+    "plan_overridden",
 ]
 
 

@@ -77,8 +77,11 @@ def discarded_section(
     target: np.ndarray | None = None,
     target_name: str | None = None,
     signal_share: float = 0.05,
+    feature_plans: dict[str, list[int]] | None = None,
 ) -> dict:
-    """The ``discarded`` section of the record for ``k`` kept components."""
+    """The ``discarded`` section of the record for ``k`` kept components. With a target,
+    the plans of ``feature_plans`` (plan id -> kept column indices) are fitted in the same
+    folds as the components (``target.plan_fits``)."""
     from .components import BOOTSTRAP_MAX_WORK, RESAMPLE_MAX_ROWS, matrix_of_rows, scaler_of_rows
     from .monitoring import contributions, row_figures, spe_limit, t2_limit
     from .rowpass import largest_first, model_row_figures
@@ -167,7 +170,7 @@ def discarded_section(
             check_rows, check_target = rows[pick], target[pick]
             sample_note = f"on a seeded sample of {RESAMPLE_MAX_ROWS:,} of the {len(rows):,} rows"
         check = target_check(check_rows, check_target, k, fit_scores, sc.transform(check_rows) @ d.loadings, target_name, seed,
-                             signal_share=signal_share)
+                             signal_share=signal_share, feature_plans=feature_plans)
         t = {
             "target": check.target,
             "kind": check.kind,
@@ -195,5 +198,6 @@ def discarded_section(
             t["signal_carrier_count"] = len(check.carriers)
             t["max_discarded_share"] = max((c["share"] for c in check.discarded_correlations if c["share"] is not None), default=0.0)
             t["relevance_subset"] = check.relevance_subset
+            t["plan_fits"] = check.plan_fits
         section["target"] = t
     return section

@@ -76,6 +76,7 @@ class TargetCheck:
     relevance_subset: dict | None = None
     reason: str | None = None
     note: str | None = None
+    plan_fits: dict = field(default_factory=dict)
 
 
 def target_check(
@@ -88,13 +89,15 @@ def target_check(
     seed: int,
     folds: int = FOLDS,
     signal_share: float = SIGNAL_SHARE,
+    feature_plans: dict[str, list[int]] | None = None,
 ) -> TargetCheck:
     """Cross-validated fit on all features against the kept components.
 
     ``fit_scores(train_rows)`` refits scaling and decomposition on the training rows and
     returns a function giving the scores of new rows on all components (columns in order).
     ``full_scores`` are the scores of all rows on every component of the full-data model,
-    for the correlations of the components with the target.
+    for the correlations of the components with the target. ``feature_plans`` maps a plan
+    to the columns it keeps; the same model is fitted on them in the same folds.
     """
     import scipy.stats  # imported here: only audits with a target need it
 
@@ -124,6 +127,9 @@ def target_check(
     pred_all = np.empty(len(y))
     pred_kept = np.empty(len(y))
     relevance_pred = np.empty(len(y))
+    plans = {plan_id: list(kept) for plan_id, kept in (feature_plans or {}).items() if kept}
+    plan_pred = {plan_id: np.empty(len(y)) for plan_id in plans}
+    fit = _ols_fit if kind == "continuous" else _logit_fit
     for part in parts:
         train = np.ones(len(y), dtype=bool)
         train[part] = False
@@ -136,14 +142,11 @@ def target_check(
         corr = np.array([abs(np.corrcoef(s_train[:, c], y[train])[0, 1]) if np.std(s_train[:, c]) > 0 else 0.0
                          for c in range(s_train.shape[1])])
         chosen = np.argsort(-np.nan_to_num(corr), kind="stable")[:k]
-        if kind == "continuous":
-            pred_all[part] = _ols_predict(_ols_fit(xs_train, y[train]), xs_test)
-            pred_kept[part] = _ols_predict(_ols_fit(s_train[:, :k], y[train]), s_test[:, :k])
-            relevance_pred[part] = _ols_predict(_ols_fit(s_train[:, chosen], y[train]), s_test[:, chosen])
-        else:
-            pred_all[part] = _ols_predict(_logit_fit(xs_train, y[train]), xs_test)
-            pred_kept[part] = _ols_predict(_logit_fit(s_train[:, :k], y[train]), s_test[:, :k])
-            relevance_pred[part] = _ols_predict(_logit_fit(s_train[:, chosen], y[train]), s_test[:, chosen])
+        pred_all[part] = _ols_predict(fit(xs_train, y[train]), xs_test)
+        pred_kept[part] = _ols_predict(fit(s_train[:, :k], y[train]), s_test[:, :k])
+        relevance_pred[part] = _ols_predict(fit(s_train[:, chosen], y[train]), s_test[:, chosen])
+        for plan_id, kept in plans.items():
+            plan_pred[plan_id][part] = _ols_predict(fit(xs_train[:, kept], y[train]), xs_test[:, kept])
     if kind == "continuous":
         # SST about the training-fold means, so that predicting the mean scores about 0.
         train_means = np.empty(len(y))
@@ -166,6 +169,7 @@ def target_check(
         in_sample = None
     base.all_features = score(pred_all)
     base.kept_components = score(pred_kept)
+    base.plan_fits = {plan_id: score(pred) for plan_id, pred in plan_pred.items()}
     base.in_sample_all_features = in_sample
     base.relevance_subset = {"metric": metric, "value": score(relevance_pred), "components": k,
                              "note": "evidence only: components chosen by their correlation with the target inside each fold"}

@@ -102,7 +102,42 @@ def charts_for(record: dict) -> dict:
         heat = loadings_heatmap(list(dec["loadings"]), dec["loadings"], min(chosen, dec.get("loadings_components", chosen)))
         if heat:
             charts["loadings"] = heat
+        plans = record.get("alternatives") or []
+        subset = next((row for row in plans if row["plan_id"] == "feature_subset"), None)
+        if subset and subset.get("greedy_path"):
+            charts["alternatives"] = alternatives_chart(subset["greedy_path"]["share"], dec["cumulative_ratio"], plans)
     return charts
+
+
+def alternatives_chart(path_share, cumulative, plans) -> str:
+    """Share of the variance kept against the number of inputs: the principal-variables path
+    (original features) beside the cumulative share of the components, each plan marked."""
+    import numpy as np
+
+    plt = _pyplot()
+    fig, ax = plt.subplots(figsize=(6.4, 3.0))
+    m = len(path_share)
+    q = len(cumulative)
+    ax.plot(np.arange(1, m + 1), np.asarray(path_share, float) * 100, "-", color=OCHRE, linewidth=1.4,
+            label="original features (principal variables, greedy path)")
+    ax.plot(np.arange(1, q + 1), np.asarray(cumulative, float) * 100, "-", color=GREEN, linewidth=1.4, label="components")
+    marks = {"components": (GREEN, "o"), "feature_subset": (OCHRE, "s"), "vif_pruning": (SLATE, "D")}
+    for row in plans:
+        if row.get("variance_retained") is None or not row.get("size"):
+            continue
+        color, marker = marks[row["plan_id"]]
+        ax.plot([row["size"]], [row["variance_retained"] * 100], marker, color=color, markersize=8 if row.get("chosen") else 6,
+                markeredgecolor=INK if row.get("chosen") else color,
+                label=f"{row['plan_id'].replace('_', ' ')} plan" + (" (chosen)" if row.get("chosen") else ""))
+    ax.set_ylim(0, 101)
+    ax.set_xlim(0, max(m, q) + 1)
+    ax.set_xlabel("number of inputs kept (components or original features)")
+    ax.set_ylabel("share of the variance kept (%)")
+    ax.spines[["top", "right"]].set_visible(False)
+    ax.legend(frameon=False, fontsize=7, loc="lower right")
+    url = svg_data_url(fig)
+    plt.close(fig)
+    return url
 
 
 def scree_chart(eigenvalues, null_percentile, null_mean, broken_stick, chosen, low=None, high=None) -> str:

@@ -28,6 +28,16 @@ def render_summary(record: dict, paths: dict | None = None) -> str:
     disc = record.get("discarded")
     if disc and disc.get("variance_fraction") is not None:
         lines.append(f"  discarded {num(100 * disc['variance_fraction'], 3)}% of the variance")
+    choice = record.get("plan_choice")
+    if choice:
+        plans = {row["plan_id"]: row for row in record.get("alternatives", [])}
+        taken = plans.get(choice["chosen"], {})
+        what = (f"{taken.get('size')} original feature(s)" if choice["chosen"] != "components"
+                else f"{taken.get('size')} component(s)")
+        share = taken.get("variance_retained")
+        kept = f", {num(100 * share, 3)}% of the variance kept" if share is not None else ""
+        note = "" if choice["chosen"] == choice["recommended"] else f" (recommended: {choice['recommended']})"
+        lines.append(f"  plan      {choice['chosen']}: {what}{kept}{note}")
     for label, path in (paths or {}).items():
         lines.append(f"  {label:<9} {path}")
     return "\n".join(lines)
