@@ -202,7 +202,8 @@ def first_pass(path, kind, head, options, quiet: bool, full: bool) -> StreamPass
             keep = np.argpartition(all_keys, SAMPLE_ROWS)[:SAMPLE_ROWS] if len(all_keys) > SAMPLE_ROWS else np.arange(len(all_keys))
             old = keep[keep < len(sample_keys)]
             new = keep[keep >= len(sample_keys)] - len(sample_keys)
-            sample_keys = all_keys[keep]
+            # The keys in the order of the rows kept below (old rows first, then new ones).
+            sample_keys = np.concatenate([sample_keys[old], keys[new]])
             sample = np.vstack([sample[old], xc[new]])
             if y is not None:
                 sample_y = np.concatenate([sample_y[old], y[complete][new]])

@@ -98,3 +98,24 @@ def test_streaming_cli_and_refusals(cli, tmp_path):
     assert r.code == 2 and r.err.startswith("error:")
     with pytest.raises(InputError, match="no Parquet or CSV parts"):
         planner.audit(tmp_path / "nothing-here-*.parquet", engine="dask")
+
+
+@pytest.mark.parametrize("name", ["t.csv", "t.parquet"])
+def test_streamed_sample_is_the_rows_with_the_smallest_keys(files, name, monkeypatch):
+    # Reference: the definition of bottom-k sampling, computed directly with numpy: every
+    # complete row, in file order, draws a key from the seeded generator; the sample is the
+    # rows with the k smallest keys. Chunks smaller than the sample make it span many chunks.
+    import planner.streaming as streaming
+
+    folder, _ = files
+    monkeypatch.setattr(streaming, "SAMPLE_ROWS", 50)
+    monkeypatch.setattr(streaming, "CHUNK_ROWS", 64)
+    result = planner.audit(folder / name, engine="stream", target="y", seed=5)
+    frame = _table()
+    features = frame[[c for c in frame.columns if c.endswith("_mm")]].to_numpy()
+    complete = np.flatnonzero(~np.isnan(features).any(axis=1)) + 1
+    keys = np.random.default_rng([5, 41]).random(len(complete))
+    expected = np.sort(complete[np.argsort(keys)[:50]])
+    np.testing.assert_array_equal(result.intake.row_numbers, expected)
+    np.testing.assert_allclose(result.intake.data, features[expected - 1], rtol=0, atol=1e-12)
+    np.testing.assert_allclose(result.intake.target, frame["y"].to_numpy()[expected - 1], rtol=0, atol=1e-12)
