@@ -55,23 +55,33 @@ def _progress(total: int | None, quiet: bool, unit: str):
 
 
 # ---------------------------------------------------------------------- reading
-def _head_frame(path: Path, kind: str):
-    """The first rows, through the ordinary intake, to take the screening decisions."""
+def _head_frame(path: Path, kind: str, options):
+    """The first rows, through the ordinary intake, to take the screening decisions.
+
+    A CSV head goes through a temporary file of the same name (the intake reads files and
+    names them in its messages); its folder is removed as soon as the head is read.
+    """
+    def load(source):
+        return intake_mod.load(
+            source, columns=options.columns, exclude=options.exclude, id_column=options.id_column,
+            target=options.target, missing="listwise",
+        )
+
     if kind == "parquet":
         import pyarrow.parquet as pq
 
         batch = next(pq.ParquetFile(path).iter_batches(batch_size=HEAD_ROWS), None)
         if batch is None:
             raise InputError(f"{path.name} has a header but no data rows", "give a file with data rows")
-        return batch.to_pandas()
+        return load(batch.to_pandas())
     with open(path, "rb") as handle:
         raw = handle.read(16 * 1024 * 1024)
     lines = raw.split(b"\n")
     keep = b"\n".join(lines[: HEAD_ROWS + 1]) if len(lines) > HEAD_ROWS + 1 else raw
-    folder = tempfile.mkdtemp(prefix="axisledger-head-")
-    head_path = Path(folder) / path.name
-    head_path.write_bytes(keep if keep.endswith(b"\n") or len(lines) <= HEAD_ROWS + 1 else keep + b"\n")
-    return head_path
+    with tempfile.TemporaryDirectory(prefix="axisledger-head-") as folder:
+        head_path = Path(folder) / path.name
+        head_path.write_bytes(keep if keep.endswith(b"\n") or len(lines) <= HEAD_ROWS + 1 else keep + b"\n")
+        return load(head_path)
 
 
 def iter_chunks(path: Path, kind: str, features: list[str], id_column: str | None, target: str | None, fmt, quiet: bool):
@@ -79,38 +89,40 @@ def iter_chunks(path: Path, kind: str, features: list[str], id_column: str | Non
     import pyarrow as pa
 
     wanted = list(features) + [c for c in (target,) if c] + [c for c in (id_column,) if c]
-    if kind == "parquet":
-        import pyarrow.parquet as pq
-
-        pf = pq.ParquetFile(path)
-        bar = _progress(pf.metadata.num_rows, quiet, "rows")
-        batches = pf.iter_batches(batch_size=CHUNK_ROWS, columns=wanted)
-    else:
-        import pyarrow.csv as pacsv
-
-        if fmt.decimal != "." or fmt.encoding not in ("utf-8", "utf-8-sig"):
-            raise InputError(
-                f"{path.name} uses a decimal comma or a non-UTF-8 encoding, which the streaming engine does not read",
-                "use --engine memory, or save the file as UTF-8 with '.' decimals",
-            )
-        types = {c: pa.float64() for c in list(features) + [c for c in (target,) if c]}
-        if id_column:
-            types[id_column] = pa.string()
-        reader = pacsv.open_csv(
-            path,
-            read_options=pacsv.ReadOptions(block_size=1 << 24, encoding="utf8"),
-            parse_options=pacsv.ParseOptions(delimiter=fmt.delimiter, newlines_in_values=True),
-            convert_options=pacsv.ConvertOptions(
-                include_columns=wanted,
-                column_types=types,
-                null_values=sorted(intake_mod.MISSING_SPELLINGS | {s.upper() for s in intake_mod.MISSING_SPELLINGS}),
-                strings_can_be_null=True,
-                quoted_strings_can_be_null=True,
-            ),
-        )
-        bar = _progress(path.stat().st_size, quiet, "B")
-        batches = reader
+    bar = None
+    # pyarrow parses the first block when the reader opens: errors there are the user's too.
     try:
+        if kind == "parquet":
+            import pyarrow.parquet as pq
+
+            pf = pq.ParquetFile(path)
+            bar = _progress(pf.metadata.num_rows, quiet, "rows")
+            batches = pf.iter_batches(batch_size=CHUNK_ROWS, columns=wanted)
+        else:
+            import pyarrow.csv as pacsv
+
+            if fmt.decimal != "." or fmt.encoding not in ("utf-8", "utf-8-sig"):
+                raise InputError(
+                    f"{path.name} uses a decimal comma or a non-UTF-8 encoding, which the streaming engine does not read",
+                    "use --engine memory, or save the file as UTF-8 with '.' decimals",
+                )
+            types = {c: pa.float64() for c in list(features) + [c for c in (target,) if c]}
+            if id_column:
+                types[id_column] = pa.string()
+            reader = pacsv.open_csv(
+                path,
+                read_options=pacsv.ReadOptions(block_size=1 << 24, encoding="utf8"),
+                parse_options=pacsv.ParseOptions(delimiter=fmt.delimiter, newlines_in_values=True),
+                convert_options=pacsv.ConvertOptions(
+                    include_columns=wanted,
+                    column_types=types,
+                    null_values=sorted(intake_mod.MISSING_SPELLINGS | {s.upper() for s in intake_mod.MISSING_SPELLINGS}),
+                    strings_can_be_null=True,
+                    quoted_strings_can_be_null=True,
+                ),
+            )
+            bar = _progress(path.stat().st_size, quiet, "B")
+            batches = reader
         for batch in batches:
             table = pa.Table.from_batches([batch]) if not isinstance(batch, pa.Table) else batch
             x = np.column_stack([table.column(c).to_numpy(zero_copy_only=False).astype(np.float64) for c in features])
@@ -151,13 +163,12 @@ class StreamPass:
     notes: list[dict] = field(default_factory=list)
 
 
-def first_pass(path, kind, head, options, quiet: bool, full: bool) -> StreamPass:
-    """Moments, a seeded sample, and the binary cache of the complete rows."""
+def first_pass(path, kind, head, options, quiet: bool, full: bool, folder: str) -> StreamPass:
+    """Moments, a seeded sample, and the binary cache (in ``folder``) of the complete rows."""
     features = head.columns_used
     p = len(features)
     moments = Moments(features, full=full)
     rng = np.random.default_rng([options.seed, 41])
-    folder = tempfile.mkdtemp(prefix="axisledger-stream-")
     cache_path = os.path.join(folder, "rows.f64")
     label_path = os.path.join(folder, "labels.txt") if head.id_column else None
     sample_keys = np.empty(0)
@@ -285,7 +296,22 @@ def read_labels(label_path: str | None, indices: set[int]) -> dict[int, str]:
 
 # ---------------------------------------------------------------------- the audit
 def run_stream_audit(path, options, quiet: bool = False):
-    """The whole audit of a file, streamed (see the module docstring)."""
+    """The whole audit of a file, streamed (see the module docstring).
+
+    The cache lives in a temporary folder that is removed on the way out, whether the audit
+    ends with a record or with an error.
+    """
+    path = Path(path)
+    kind = can_stream(path)
+    if kind is None:
+        raise InputError(f"{path.name} cannot be streamed (only CSV and Parquet can)", "use --engine memory")
+    if options.missing == "mean":
+        raise InputError("--missing mean needs two passes over the whole table and is not streamed", "use --missing listwise, or --engine memory")
+    with tempfile.TemporaryDirectory(prefix="axisledger-stream-") as folder:
+        return _audit_in(folder, path, kind, options, quiet)
+
+
+def _audit_in(folder: str, path: Path, kind: str, options, quiet: bool):
     import dataclasses
 
     import scipy.stats
@@ -298,21 +324,11 @@ def run_stream_audit(path, options, quiet: bool = False):
     from .pipeline import AuditResult, build_record, choose_components, scaling_for, thresholds_from
     from .rulebook import load_rulebook
 
-    path = Path(path)
-    kind = can_stream(path)
-    if kind is None:
-        raise InputError(f"{path.name} cannot be streamed (only CSV and Parquet can)", "use --engine memory")
-    if options.missing == "mean":
-        raise InputError("--missing mean needs two passes over the whole table and is not streamed", "use --missing listwise, or --engine memory")
     rulebook = load_rulebook(options.rules)
-    head_source = _head_frame(path, kind)
-    head = intake_mod.load(
-        head_source, columns=options.columns, exclude=options.exclude, id_column=options.id_column,
-        target=options.target, missing="listwise",
-    )
+    head = _head_frame(path, kind, options)
     p = len(head.columns_used)
     full = p <= WIDE_FEATURES
-    sp = first_pass(path, kind, head, options, quiet, full)
+    sp = first_pass(path, kind, head, options, quiet, full, folder)
     moments = sp.moments
     n = moments.n
     if n < intake_mod.MIN_ROWS:
@@ -419,10 +435,4 @@ def run_stream_audit(path, options, quiet: bool = False):
     from .record import seal
 
     seal(record)
-    for name in (sp.cache_path, sp.number_cache_path, sp.label_cache_path):
-        if name:
-            try:
-                os.unlink(name)
-            except OSError:
-                pass
     return AuditResult(record=record, intake=result, moments=moments)

@@ -5,6 +5,8 @@ statsmodels and scikit-learn elsewhere; here the engines must agree with it to 1
 """
 from __future__ import annotations
 
+import tempfile
+
 import numpy as np
 import pandas as pd
 import pytest
@@ -119,3 +121,45 @@ def test_streamed_sample_is_the_rows_with_the_smallest_keys(files, name, monkeyp
     np.testing.assert_array_equal(result.intake.row_numbers, expected)
     np.testing.assert_allclose(result.intake.data, features[expected - 1], rtol=0, atol=1e-12)
     np.testing.assert_allclose(result.intake.target, frame["y"].to_numpy()[expected - 1], rtol=0, atol=1e-12)
+
+
+@pytest.fixture
+def private_tmp(tmp_path, monkeypatch):
+    """A temporary-files folder for this test alone, to see what an audit leaves in it."""
+    folder = tmp_path / "private-tmp"
+    folder.mkdir()
+    monkeypatch.setattr(tempfile, "tempdir", str(folder))
+    return folder
+
+
+@pytest.mark.parametrize("name", ["t.csv", "t.parquet"])
+def test_streaming_removes_its_temporary_files(files, name, private_tmp):
+    folder, _ = files
+    planner.audit(folder / name, engine="stream", target="y")
+    assert list(private_tmp.iterdir()) == []
+
+
+def _damaged(frame: pd.DataFrame, damage: str) -> pd.DataFrame:
+    """The frame with one bad cell at data row 200, past the screened head."""
+    frame = frame.astype({"v2_mm": object})
+    frame.loc[199, "v2_mm"] = {"text": "oops", "infinite": "inf"}[damage]
+    return frame
+
+
+@pytest.mark.parametrize("damage, options, message", [
+    ("text", [], "did not prepare for"),
+    ("infinite", [], "infinite value at data row 200"),
+    (None, ["--missing", "fail"], "missing value at data row 6"),
+])
+def test_a_streamed_input_error_leaves_no_files(cli, tmp_path, private_tmp, monkeypatch, damage, options, message):
+    import planner.streaming as streaming
+
+    monkeypatch.setattr(streaming, "HEAD_ROWS", 50)
+    frame = _table(300)
+    if damage:
+        frame = _damaged(frame, damage)
+    frame.to_csv(tmp_path / "t.csv", index=False)
+    r = cli("audit", tmp_path / "t.csv", "--engine", "stream", "--no-pdf", "--quiet", "--out", "o", *options)
+    assert r.code == 2 and r.err.startswith("error:") and message in r.err, r
+    assert not (tmp_path / "o").exists()
+    assert list(private_tmp.iterdir()) == []
