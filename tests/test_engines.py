@@ -163,3 +163,57 @@ def test_a_streamed_input_error_leaves_no_files(cli, tmp_path, private_tmp, monk
     assert r.code == 2 and r.err.startswith("error:") and message in r.err, r
     assert not (tmp_path / "o").exists()
     assert list(private_tmp.iterdir()) == []
+
+
+@pytest.mark.parametrize("name", ["t.csv", "t.parquet"])
+def test_streamed_sha256_is_that_of_the_file_bytes(files, name, monkeypatch):
+    # Reference: hashlib.sha256 of the file's bytes. Small CSV blocks make the parser read
+    # the file in many pieces, each hashed as it is read.
+    import hashlib
+
+    import planner.streaming as streaming
+
+    folder, _ = files
+    monkeypatch.setattr(streaming, "CSV_BLOCK_BYTES", 4096)
+    record = planner.audit(folder / name, engine="stream", target="y").record
+    assert record["input"]["sha256"] == hashlib.sha256((folder / name).read_bytes()).hexdigest()
+
+
+@pytest.mark.parametrize("name", ["t.csv", "t.parquet"])
+def test_small_blocks_and_chunks_give_the_in_memory_figures(files, name, monkeypatch):
+    # The reference is the in-memory engine (see the module docstring); chunks of 100 rows
+    # from 4 kB parser blocks split batches across chunks and rows across blocks.
+    import planner.streaming as streaming
+
+    folder, _ = files
+    monkeypatch.setattr(streaming, "CSV_BLOCK_BYTES", 4096)
+    monkeypatch.setattr(streaming, "CHUNK_ROWS", 100)
+    memory = planner.audit(folder / "t.csv", engine="memory", target="y", id_column="lot").record
+    streamed = planner.audit(folder / name, engine="stream", target="y", id_column="lot").record
+    for key in FIGURES:
+        _compare(memory[key], streamed[key], key)
+    for key in DISCARDED:
+        _compare(memory["discarded"][key], streamed["discarded"][key], key)
+    for key in ("worst_spe", "worst_t2"):
+        assert [(w["row"], w["label"]) for w in memory["discarded"][key]] == \
+            [(w["row"], w["label"]) for w in streamed["discarded"][key]]
+    assert [(w["row"], w["label"]) for w in memory["diagnostics"]["outliers"]["worst"]] == \
+        [(w["row"], w["label"]) for w in streamed["diagnostics"]["outliers"]["worst"]]
+    assert streamed["reproducibility"]["engine"]["chunk_rows"] == 100
+
+
+def test_the_screened_head_holds_whole_lines_only(tmp_path, monkeypatch):
+    # Reference: the file's own lines (bytes.splitlines); a line cut at the byte limit
+    # must not reach the screening as a short row.
+    import planner.streaming as streaming
+
+    frame = _table(300)
+    frame.to_csv(tmp_path / "t.csv", index=False)
+    raw = (tmp_path / "t.csv").read_bytes()
+    monkeypatch.setattr(streaming, "HEAD_BYTES", 5000)
+    head = streaming._head_bytes(tmp_path / "t.csv")
+    assert head.endswith(b"\n") and raw.startswith(head)
+    assert head.splitlines() == raw.splitlines()[: len(head.splitlines())]
+    monkeypatch.setattr(streaming, "HEAD_BYTES", len(raw) + 1)
+    monkeypatch.setattr(streaming, "HEAD_ROWS", 20)
+    assert streaming._head_bytes(tmp_path / "t.csv").splitlines() == raw.splitlines()[:21]
