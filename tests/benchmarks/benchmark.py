@@ -32,6 +32,19 @@ sys.path.insert(0, str(Path(__file__).resolve().parents[2]))
 import numpy as np
 
 
+_SCRATCH: list[Path] = []
+
+
+def _scratch_folder() -> Path:
+    """A temporary folder for a section's data, removed when the script ends (the stream
+    section's CSV alone is 1.4 GB)."""
+    import tempfile
+
+    folder = Path(tempfile.mkdtemp(prefix="axl-bench-"))
+    _SCRATCH.append(folder)
+    return folder
+
+
 def best_of(fn, repeats: int = 3) -> float:
     times = []
     for _ in range(repeats):
@@ -78,12 +91,10 @@ def _audit_cmd(data: Path, out: Path, *extra: str) -> list[str]:
 
 def section_memory() -> list[tuple[str, str, str]]:
     """In memory, 1,000,000 x 100 Parquet: audit --no-pdf against the floor."""
-    import tempfile
-
     import pandas as pd
     import pyarrow.parquet as pq
 
-    folder = Path(tempfile.mkdtemp(prefix="axl-bench-"))
+    folder = _scratch_folder()
     data = folder / "wide_rows.parquet"
     x = _factor_table(1_000_000, 100)
     pd.DataFrame(x, columns=[f"f{j:03d}" for j in range(100)]).to_parquet(data)
@@ -105,11 +116,9 @@ def section_memory() -> list[tuple[str, str, str]]:
 
 def section_stream() -> list[tuple[str, str, str]]:
     """Streaming, a 3,000,000 x 50 CSV: peak RSS and throughput against pyarrow's raw read."""
-    import tempfile
-
     import pyarrow.csv as pacsv
 
-    folder = Path(tempfile.mkdtemp(prefix="axl-bench-"))
+    folder = _scratch_folder()
     data = folder / "long.csv"
     with open(data, "w") as handle:
         handle.write(",".join(f"f{j:02d}" for j in range(50)) + "\n")
@@ -134,14 +143,12 @@ def section_stream() -> list[tuple[str, str, str]]:
 
 def section_hand() -> list[tuple[str, str, str]]:
     """Against the hand-assembled way at 100,000 x 50."""
-    import tempfile
-
     import pandas as pd
     from sklearn.decomposition import PCA
     from statsmodels.stats.outliers_influence import variance_inflation_factor
     from statsmodels.tools import add_constant
 
-    folder = Path(tempfile.mkdtemp(prefix="axl-bench-"))
+    folder = _scratch_folder()
     x = _factor_table(100_000, 50)
     data = folder / "mid.parquet"
     pd.DataFrame(x, columns=[f"f{j:02d}" for j in range(50)]).to_parquet(data)
@@ -166,11 +173,9 @@ def section_hand() -> list[tuple[str, str, str]]:
 
 def section_wide() -> list[tuple[str, str, str]]:
     """Wide: 300 x 20,000."""
-    import tempfile
-
     import pandas as pd
 
-    folder = Path(tempfile.mkdtemp(prefix="axl-bench-"))
+    folder = _scratch_folder()
     data = folder / "wide.parquet"
     pd.DataFrame(_factor_table(300, 20_000), columns=[f"f{j:05d}" for j in range(20_000)]).to_parquet(data)
     audit_s, peak = _peak_rss_mb(_audit_cmd(data, folder / "out", "--engine", "memory"))
@@ -185,12 +190,19 @@ def main() -> int:
     ap = argparse.ArgumentParser(description=__doc__.split("\n\n")[0])
     ap.add_argument("sections", nargs="*", default=list(SECTIONS), help=f"any of: {', '.join(SECTIONS)}")
     args = ap.parse_args()
+    unknown = [name for name in args.sections if name not in SECTIONS]
+    if unknown:
+        print(f"unknown section {unknown[0]!r}; choose from {', '.join(SECTIONS)}", file=sys.stderr)
+        return 2
     rows = []
-    for name in args.sections:
-        if name not in SECTIONS:
-            print(f"unknown section {name!r}; choose from {', '.join(SECTIONS)}", file=sys.stderr)
-            return 2
-        rows.extend(SECTIONS[name]())
+    try:
+        for name in args.sections:
+            rows.extend(SECTIONS[name]())
+    finally:
+        import shutil
+
+        for folder in _SCRATCH:
+            shutil.rmtree(folder, ignore_errors=True)
     width = max(len(r[0]) for r in rows)
     print(f"{'measurement':<{width}}  {'figure':>12}  target")
     for what, figure, target in rows:
