@@ -33,6 +33,8 @@ CHUNK_ROWS = 16_384
 #: the parser, so this bounds its read-ahead (32 MB); blocks of 1 MB also parse about twice
 #: as fast as blocks of 16 MB, which no longer fit the processor's caches.
 CSV_BLOCK_BYTES = 1 << 20
+#: Read buffer of each Parquet column chunk (see ParquetSource).
+PARQUET_BUFFER_BYTES = 1 << 16
 HEAD_ROWS = 20_000
 #: At most this much of the file is read for the screening rows.
 HEAD_BYTES = 16 * 1024 * 1024
@@ -86,7 +88,8 @@ def _head_bytes(path: Path) -> bytes:
 def _parquet_head(path: Path):
     import pyarrow.parquet as pq
 
-    batch = next(pq.ParquetFile(path).iter_batches(batch_size=HEAD_ROWS), None)
+    with pq.ParquetFile(path, pre_buffer=False, buffer_size=PARQUET_BUFFER_BYTES) as source:  # see ParquetSource
+        batch = next(source.iter_batches(batch_size=HEAD_ROWS), None)
     if batch is None:
         raise InputError(f"{path.name} has a header but no data rows", "give a file with data rows")
     return batch.to_pandas()
@@ -219,7 +222,10 @@ class CsvSource:
 class ParquetSource:
     """A Parquet file as pyarrow record batches.
 
-    A Parquet reader seeks (footer first, then column chunks), so the file's bytes cannot
+    By default pyarrow loads whole row groups (often a million rows) and more ahead of
+    the batches it hands out; without pre-buffering and with a read buffer it reads the
+    column chunks piece by piece, so memory does not follow the row-group size. A
+    Parquet reader seeks (footer first, then column chunks), so the file's bytes cannot
     be hashed as they are read: its SHA-256 takes a plain read of its own.
     """
 
@@ -229,7 +235,7 @@ class ParquetSource:
         import pyarrow.parquet as pq
 
         self.path, self.head = path, head
-        self._file = pq.ParquetFile(path)
+        self._file = pq.ParquetFile(path, pre_buffer=False, buffer_size=PARQUET_BUFFER_BYTES)
         self.total = self._file.metadata.num_rows
         self._rows = 0
 
