@@ -34,6 +34,19 @@ sys.path.insert(0, str(Path(__file__).resolve().parents[2]))
 import numpy as np
 
 
+_SCRATCH: list[Path] = []
+
+
+def _scratch_folder() -> Path:
+    """A temporary folder for a section's data, removed when the script ends (the stream
+    section's CSV alone is 1.4 GB)."""
+    import tempfile
+
+    folder = Path(tempfile.mkdtemp(prefix="axl-bench-"))
+    _SCRATCH.append(folder)
+    return folder
+
+
 def best_of(fn, repeats: int = 3) -> float:
     times = []
     for _ in range(repeats):
@@ -54,17 +67,31 @@ def section_parallel() -> list[tuple[str, str, str]]:
     return [("parallel analysis, 1000 draws, p = 100, n = 1000", f"{seconds:.2f} s", "under 2 s")]
 
 
+#: Starts a command, waits for it, prints its seconds, exit status and peak RSS in kB.
+_LAUNCHER = """
+import os, subprocess, sys, time
+start = time.perf_counter()
+child = subprocess.Popen(sys.argv[1:], stdout=subprocess.DEVNULL)
+_, status, usage = os.wait4(child.pid, 0)
+print(time.perf_counter() - start, status, usage.ru_maxrss)
+"""
+
+
 def _peak_rss_mb(pid_cmd: list[str]) -> tuple[float, float]:
-    """Run a command, return (seconds, peak RSS of the child in MB) from resource usage."""
+    """Run a command, return (seconds, peak RSS of the child in MB) from resource usage.
+
+    Linux carries the peak RSS of the process that starts a child over into the child's
+    own figure (it is taken from the forked memory at exec), so a child started from here,
+    after the raw pyarrow read has peaked near 0.8 GB, would report at least that. The
+    command is started by a small fresh launcher instead, whose peak is a few MB.
+    """
     import subprocess
 
-    start = time.perf_counter()
-    child = subprocess.Popen(pid_cmd, stdout=subprocess.DEVNULL)
-    _, status, usage = os.wait4(child.pid, 0)  # this child's own peak, not the largest so far
-    seconds = time.perf_counter() - start
-    if status != 0:
+    done = subprocess.run([sys.executable, "-c", _LAUNCHER, *pid_cmd], capture_output=True, text=True, check=True)
+    seconds, status, peak_kb = done.stdout.split()
+    if int(status) != 0:
         raise RuntimeError(f"{' '.join(pid_cmd)} failed with status {status}")
-    return seconds, usage.ru_maxrss / 1024
+    return float(seconds), int(peak_kb) / 1024
 
 
 def _factor_table(n: int, p: int, seed: int = 0) -> np.ndarray:
@@ -81,12 +108,10 @@ def _audit_cmd(data: Path, out: Path, *extra: str) -> list[str]:
 
 def section_memory() -> list[tuple[str, str, str]]:
     """In memory, 1,000,000 x 100 Parquet: audit --no-pdf against the floor."""
-    import tempfile
-
     import pandas as pd
     import pyarrow.parquet as pq
 
-    folder = Path(tempfile.mkdtemp(prefix="axl-bench-"))
+    folder = _scratch_folder()
     data = folder / "wide_rows.parquet"
     x = _factor_table(1_000_000, 100)
     pd.DataFrame(x, columns=[f"f{j:03d}" for j in range(100)]).to_parquet(data)
@@ -112,11 +137,9 @@ def section_memory() -> list[tuple[str, str, str]]:
 
 def section_stream() -> list[tuple[str, str, str]]:
     """Streaming, a 3,000,000 x 50 CSV: peak RSS and throughput against pyarrow's raw read."""
-    import tempfile
-
     import pyarrow.csv as pacsv
 
-    folder = Path(tempfile.mkdtemp(prefix="axl-bench-"))
+    folder = _scratch_folder()
     data = folder / "long.csv"
     with open(data, "w") as handle:
         handle.write(",".join(f"f{j:02d}" for j in range(50)) + "\n")
@@ -141,14 +164,12 @@ def section_stream() -> list[tuple[str, str, str]]:
 
 def section_hand() -> list[tuple[str, str, str]]:
     """Against the hand-assembled way at 100,000 x 50."""
-    import tempfile
-
     import pandas as pd
     from sklearn.decomposition import PCA
     from statsmodels.stats.outliers_influence import variance_inflation_factor
     from statsmodels.tools import add_constant
 
-    folder = Path(tempfile.mkdtemp(prefix="axl-bench-"))
+    folder = _scratch_folder()
     x = _factor_table(100_000, 50)
     data = folder / "mid.parquet"
     pd.DataFrame(x, columns=[f"f{j:02d}" for j in range(50)]).to_parquet(data)
@@ -173,11 +194,9 @@ def section_hand() -> list[tuple[str, str, str]]:
 
 def section_wide() -> list[tuple[str, str, str]]:
     """Wide: 300 x 20,000."""
-    import tempfile
-
     import pandas as pd
 
-    folder = Path(tempfile.mkdtemp(prefix="axl-bench-"))
+    folder = _scratch_folder()
     data = folder / "wide.parquet"
     pd.DataFrame(_factor_table(300, 20_000), columns=[f"f{j:05d}" for j in range(20_000)]).to_parquet(data)
     audit_s, peak = min(_peak_rss_mb(_audit_cmd(data, folder / "out", "--engine", "memory")) for _ in range(2))
@@ -192,12 +211,19 @@ def main() -> int:
     ap = argparse.ArgumentParser(description=__doc__.split("\n\n")[0])
     ap.add_argument("sections", nargs="*", default=list(SECTIONS), help=f"any of: {', '.join(SECTIONS)}")
     args = ap.parse_args()
+    unknown = [name for name in args.sections if name not in SECTIONS]
+    if unknown:
+        print(f"unknown section {unknown[0]!r}; choose from {', '.join(SECTIONS)}", file=sys.stderr)
+        return 2
     rows = []
-    for name in args.sections:
-        if name not in SECTIONS:
-            print(f"unknown section {name!r}; choose from {', '.join(SECTIONS)}", file=sys.stderr)
-            return 2
-        rows.extend(SECTIONS[name]())
+    try:
+        for name in args.sections:
+            rows.extend(SECTIONS[name]())
+    finally:
+        import shutil
+
+        for folder in _SCRATCH:
+            shutil.rmtree(folder, ignore_errors=True)
     width = max(len(r[0]) for r in rows)
     print(f"{'measurement':<{width}}  {'figure':>12}  target")
     for what, figure, target in rows:
