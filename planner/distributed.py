@@ -69,7 +69,7 @@ def _partition_pass(frame, features, target, id_column, seed, index):
 
 def _row_pass(frame, features, id_column, index, model, offset=0):
     """Per-partition counts and worst rows of SPE, T-squared and the Mahalanobis screen."""
-    from .analysis.monitoring import row_figures
+    from .analysis.monitoring import beyond_limit, row_figures
     from .analysis.outliers import mahalanobis_d2
 
     x = frame[features].to_numpy(dtype=np.float64)
@@ -81,7 +81,7 @@ def _row_pass(frame, features, id_column, index, model, offset=0):
     d2 = mahalanobis_d2(x, model["moments"], model["spectrum"])
     out = {"n": len(x)}
     for name, values, limits in (("spe", fig.spe, model["spe_limits"]), ("t2", fig.t2, model["t2_limits"]), ("d2", d2, model["d2_limits"])):
-        out[name] = [int((values > lim).sum()) if lim is not None else 0 for lim in limits]
+        out[name] = [int(beyond_limit(values, lim).sum()) for lim in limits]
         top = np.argsort(-values, kind="stable")[:TOP_ROWS]
         out[name + "_top"] = [(float(values[i]), str(labels[i]), x[i], int(rows[i])) for i in top]
     return out

@@ -298,7 +298,7 @@ def run_audit(source, options: AuditOptions | None = None) -> AuditResult:
         permutation=options.parallel_null == "permutation",
     )
     chosen, override = choose_components(evidence, options)
-    alternatives = alternatives_for(evidence, chosen, moments, rulebook)
+    alternatives = alternatives_for(evidence, chosen, moments, rulebook, result.data)
     discarded = discarded_section(
         evidence,
         chosen,
@@ -380,18 +380,21 @@ def scaling_for(requested: str, moments: Moments, rows, diagnostics: dict, ruleb
 
 
 
-def alternatives_for(evidence, chosen: int, moments: Moments, rulebook: Rulebook):
-    """The plans that keep original features, beside the component plan (from the matrices)."""
-    from .analysis.alternatives import plan_alternatives
+def alternatives_for(evidence, chosen: int, moments: Moments, rulebook: Rulebook, rows: np.ndarray | None = None):
+    """The plans that keep original features, beside the component plan (from the matrices:
+    the Moments' ones, or for p >= n, up to SUBSET_MAX_FEATURES features, the rows')."""
+    from .analysis.alternatives import SUBSET_MAX_FEATURES, plan_alternatives
 
     d = evidence.decomposition
     vif_threshold = float(rulebook.threshold("vif_high", 10.0))
-    if not moments.full or moments.p >= moments.n:
-        why = ("undefined: p >= n, every set of n features is dependent" if moments.p >= moments.n
-               else "not computed: no p x p matrix is formed for a table this wide")
+    if moments.full and moments.p < moments.n:
+        c, r = evidence.scaling.matrix(moments), moments.correlation()
+    elif rows is not None and moments.p <= SUBSET_MAX_FEATURES:
+        c = np.cov(evidence.scaling.transform(rows), rowvar=False)
+        r = np.corrcoef(rows, rowvar=False)
+    else:
+        why = f"not computed: no p x p matrix is formed for {moments.p} features"
         return plan_alternatives(None, None, d.loadings, d.explained_ratio, chosen, vif_threshold, reason=why)
-    c = evidence.scaling.matrix(moments)
-    r = moments.correlation()
     return plan_alternatives(c, r, d.loadings, d.explained_ratio, chosen, vif_threshold)
 
 

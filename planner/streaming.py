@@ -595,13 +595,15 @@ def row_figure_pass(sp: StreamPass, transform, figures, limits: dict, chart_rows
     ``figures`` maps scaled rows to their row figures; ``chart_rows`` are the sorted cache
     indices whose figures are kept for the chart, in file order.
     """
+    from .analysis.monitoring import beyond_limit
+
     result = RowFigurePass({key: 0 for key in limits}, TopRows(), TopRows(), [], [])
     for start, chunk in cached_chunks(sp.cache_path, sp.moments.p, sp.rows_used):
         fig = figures(transform(chunk))
         for key, limit in limits.items():
             if limit is not None:
                 values = fig.spe if key.startswith("spe") else fig.t2
-                result.counts[key] += int((values > limit).sum())
+                result.counts[key] += int(beyond_limit(values, limit).sum())
         result.top_spe.update(fig.spe, start)
         result.top_t2.update(fig.t2, start)
         lo, hi = np.searchsorted(chart_rows, [start, start + len(chunk)])

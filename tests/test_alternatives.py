@@ -257,11 +257,28 @@ def test_unknown_plan_is_refused(cli, tmp_path):
     assert not (tmp_path / "o").exists()
 
 
-def test_wide_tables_keep_the_component_plan_and_say_why():
+def test_more_features_than_rows_still_gets_plans_on_original_features():
+    # p > n: C is singular, but a subset smaller than n has a share all the same (checked
+    # with statsmodels OLS on the standardized rows, as above). Invented data, p > n.
     rng = np.random.default_rng(8)
-    frame = pd.DataFrame(rng.standard_normal((20, 40)), columns=[f"s{j}" for j in range(40)])  # invented, p > n
+    frame = pd.DataFrame(rng.standard_normal((9, 14)), columns=[f"s{j:02d}" for j in range(14)])
+    rec = planner.audit(frame, scaling="standardize", seed=0).record
+    plans = plans_of(rec)
+    x = frame.to_numpy()
+    for plan_id in ("feature_subset", "vif_pruning"):
+        idx = [frame.columns.get_loc(c) for c in plans[plan_id]["kept"]]
+        assert 0 < len(idx) < len(x)
+        shares = [sm.OLS(x[:, j], sm.add_constant(x[:, idx])).fit().rsquared for j in range(x.shape[1])]
+        assert plans[plan_id]["variance_retained"] == pytest.approx(float(np.mean(shares)), abs=1e-9)
+    assert plans["feature_subset"]["variance_retained"] >= plans["components"]["variance_retained"] - 1e-12
+    assert all(step["vif"] is None for step in plans["vif_pruning"]["removed"][: 14 - 8])  # R has rank n - 1 = 8
+
+
+def test_tables_too_wide_for_a_p_by_p_matrix_keep_the_component_plan_and_say_why():
+    rng = np.random.default_rng(9)
+    frame = pd.DataFrame(rng.standard_normal((12, 2100)), columns=[f"w{j:04d}" for j in range(2100)])  # invented
     rec = planner.audit(frame, seed=0).record
     plans = plans_of(rec)
     assert set(plans) == {"components", "feature_subset", "vif_pruning"}
-    assert plans["feature_subset"]["variance_retained"] is None and "p >= n" in plans["feature_subset"]["reason"]
+    assert plans["feature_subset"]["variance_retained"] is None and "2100 features" in plans["feature_subset"]["reason"]
     assert rec["plan_choice"]["chosen"] == rec["plan_choice"]["recommended"] == "components"

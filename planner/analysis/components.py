@@ -8,7 +8,7 @@ import numpy as np
 
 from ..moments import Moments
 from . import retention
-from .decomposition import Decomposition, Intervals, anderson_intervals, bootstrap_intervals, decompose
+from .decomposition import Decomposition, Intervals, anderson_intervals, bootstrap_intervals, complete_basis, decompose
 from .retention import RuleResult
 from .scaling import Scaling, make_scaling, scale_for
 
@@ -270,8 +270,17 @@ def _rule_entry(r: RuleResult) -> dict:
 
 def decomposition_section(ev: ComponentEvidence, columns: list[str]) -> dict:
     d, sc = ev.decomposition, ev.scaling
-    q = d.loadings.shape[1]
-    keep = q if len(columns) <= MAX_FULL_LOADINGS else min(q, WIDE_KEPT_LOADINGS)
+    eigenvalues, ratio, loadings = d.eigenvalues, d.explained_ratio, d.loadings
+    p = len(columns)
+    if len(eigenvalues) < p:
+        # p >= n: the p x p matrix has p - q more eigenvalues, exactly 0; the record lists them,
+        # with an orthonormal basis of the null space as their loadings where loadings are kept whole.
+        zeros = np.zeros(p - len(eigenvalues))
+        eigenvalues, ratio = np.concatenate([eigenvalues, zeros]), np.concatenate([ratio, zeros])
+        if p <= MAX_FULL_LOADINGS:
+            loadings = complete_basis(loadings)
+    q = loadings.shape[1]
+    keep = q if p <= MAX_FULL_LOADINGS else min(q, WIDE_KEPT_LOADINGS)
     section = {
         "scaling": {"method": sc.method, "requested": sc.requested, "reasons": list(sc.reasons)},
         "matrix": {
@@ -283,11 +292,11 @@ def decomposition_section(ev: ComponentEvidence, columns: list[str]) -> dict:
         "route": d.route,
         "route_reason": d.reason,
         "sign_convention": "each loading vector has its element of largest absolute value positive",
-        "eigenvalues": d.eigenvalues,
-        "explained_ratio": d.explained_ratio,
-        "cumulative_ratio": d.cumulative,
+        "eigenvalues": eigenvalues,
+        "explained_ratio": ratio,
+        "cumulative_ratio": np.cumsum(ratio),
         "trace": d.trace,
-        "loadings": {c: d.loadings[j, :keep] for j, c in enumerate(columns)},
+        "loadings": {c: loadings[j, :keep] for j, c in enumerate(columns)},
         "loadings_components": keep,
         "center": {c: float(v) for c, v in zip(columns, sc.center)},
         "scale": {c: float(v) for c, v in zip(columns, sc.scale)},

@@ -46,6 +46,20 @@ def sign_convention(vectors: np.ndarray) -> np.ndarray:
     return vectors * signs
 
 
+def complete_basis(vectors: np.ndarray) -> np.ndarray:
+    """``vectors`` (p x q, orthonormal columns) followed by an orthonormal basis of the space
+    orthogonal to them (scipy.linalg.null_space, from an SVD), signed by the convention:
+    the eigenvectors of the zero eigenvalues of a p x p matrix of rank q. Any such basis is
+    one; this one is deterministic."""
+    import scipy.linalg
+
+    p, q = vectors.shape
+    if q >= p:
+        return vectors
+    rest = scipy.linalg.null_space(vectors.T)
+    return np.concatenate([vectors, sign_convention(rest[:, : p - q])], axis=1)
+
+
 def decompose_matrix(matrix: np.ndarray, n: int) -> Decomposition:
     """Eigendecomposition of the symmetric p x p matrix decomposed (numpy.linalg.eigh)."""
     values, vectors = np.linalg.eigh(matrix)
@@ -116,7 +130,8 @@ def decompose_rows(z: np.ndarray) -> Decomposition:
         loadings=sign_convention(vt[:q].T),
         trace=trace,
         n=n,
-        reason=f"p >= n: only the {q} components with non-zero variance exist; the other {p - q} eigenvalues are 0",
+        reason=f"p >= n: only the {q} components with non-zero variance exist; the other {p - q} eigenvalues are exactly 0 "
+               "(listed as 0, their loadings an orthonormal basis of the null space)",
     )
 
 

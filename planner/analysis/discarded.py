@@ -20,8 +20,9 @@ class OverallDiscarded:
 
 
 def overall_discarded(d: Decomposition, k: int, intervals: Intervals | None) -> OverallDiscarded:
-    """1 - (sum of the first k eigenvalues) / trace, with the interval of the cumulative share."""
-    fraction = float(max(0.0, 1.0 - np.sum(d.eigenvalues[:k]) / d.trace))
+    """(sum of the eigenvalues after the first k) / trace, with the interval of the cumulative
+    share (summing what is discarded, not 1 - the kept share, keeps a nothing exactly 0)."""
+    fraction = float(min(1.0, max(0.0, np.sum(d.eigenvalues[k:]) / d.trace)))
     low = high = method = None
     if intervals is not None:
         low = float(max(0.0, 1.0 - intervals.cumulative_high[k - 1]))
@@ -83,7 +84,7 @@ def discarded_section(
     the plans of ``feature_plans`` (plan id -> kept column indices) are fitted in the same
     folds as the components (``target.plan_fits``)."""
     from .components import BOOTSTRAP_MAX_WORK, RESAMPLE_MAX_ROWS, matrix_of_rows, scaler_of_rows
-    from .monitoring import contributions, row_figures, spe_limit, t2_limit
+    from .monitoring import beyond_limit, contributions, row_figures, spe_limit, t2_limit
     from .rowpass import largest_first, model_row_figures
     from .stability import loading_stability
     from .target import target_check
@@ -94,7 +95,8 @@ def discarded_section(
     feature_var = moments.std() ** 2 / sc.scale**2  # variance of each scaled feature
     per = feature_retention(d, k, feature_var, sc.scale, columns, floor)
     residual_eigen = d.eigenvalues[k:]
-    limits = {level: spe_limit(residual_eigen, level) for level in (0.95, 0.99)}
+    negligible = float(d.eigenvalues[0]) * len(columns) * np.finfo(float).eps * 100  # an exact zero, rounded
+    limits = {level: spe_limit(residual_eigen, level, negligible) for level in (0.95, 0.99)}
     section = {
         "kept_components": k,
         "variance_fraction": overall.variance_fraction,
@@ -122,12 +124,12 @@ def discarded_section(
     figures = model_row_figures(rows, sc.center, sc.scale, d.loadings, d.eigenvalues, k)
     spe_lim, t2_lim = section["spe_limit"], section["t2_limit"]
     n_rows = len(figures.spe)
-    over_spe = figures.spe > spe_lim if spe_lim is not None else np.zeros(n_rows, bool)
-    over_t2 = figures.t2 > t2_lim if t2_lim is not None else np.zeros(n_rows, bool)
+    over_spe = beyond_limit(figures.spe, spe_lim)
+    over_t2 = beyond_limit(figures.t2, t2_lim)
     section["rows_over_spe_limit"] = int(over_spe.sum())
     section["rows_over_t2_limit"] = int(over_t2.sum())
-    section["rows_over_spe_limit_99"] = int((figures.spe > section["spe_limit_99"]).sum()) if section["spe_limit_99"] is not None else 0
-    section["rows_over_t2_limit_99"] = int((figures.t2 > section["t2_limit_99"]).sum()) if section["t2_limit_99"] is not None else 0
+    section["rows_over_spe_limit_99"] = int(beyond_limit(figures.spe, section["spe_limit_99"]).sum())
+    section["rows_over_t2_limit_99"] = int(beyond_limit(figures.t2, section["t2_limit_99"]).sum())
     section["share_rows_over_spe_limit"] = float(over_spe.mean())
     worst_spe = largest_first(figures.spe, WORST_ROWS)
     residuals = row_figures(sc.transform(rows[worst_spe]), d.loadings, d.eigenvalues, k).residual

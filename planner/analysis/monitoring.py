@@ -17,14 +17,16 @@ class SpeLimit:
     h0: float | None
 
 
-def spe_limit(residual_eigenvalues: np.ndarray, level: float = 0.95) -> SpeLimit:
+def spe_limit(residual_eigenvalues: np.ndarray, level: float = 0.95, negligible: float = 0.0) -> SpeLimit:
     """Upper control limit of the squared prediction error of a PCA model.
 
     With theta_i = sum over the discarded components of l^i (i = 1, 2, 3) and
     h0 = 1 - 2 theta1 theta3 / (3 theta2^2), Jackson and Mudholkar's limit is
     theta1 [z sqrt(2 theta2 h0^2) / theta1 + 1 + theta2 h0 (h0 - 1) / theta1^2]^(1/h0).
     Where h0 <= 0 that approximation fails and Box's g chi2(h), g = theta2 / theta1,
-    h = theta1^2 / theta2, is used instead (the result says which).
+    h = theta1^2 / theta2, is used instead (the result says which). Discarded eigenvalues
+    at or below ``negligible`` (rounding of an exact zero) count as zero; with nothing else
+    discarded the limit is 0 and no row lies beyond it (see :func:`beyond_limit`).
 
     References
     ----------
@@ -34,6 +36,7 @@ def spe_limit(residual_eigenvalues: np.ndarray, level: float = 0.95) -> SpeLimit
     analysis of variance problems, I", Annals of Mathematical Statistics 25(2), 290-302.
     """
     lam = np.clip(np.asarray(residual_eigenvalues, float), 0.0, None)
+    lam = lam[lam > negligible]
     theta1, theta2, theta3 = (float(np.sum(lam**i)) for i in (1, 2, 3))
     if theta1 <= 0 or theta2 <= 0:
         return SpeLimit(level, 0.0, "no discarded variance: every row is reproduced exactly", None)
@@ -45,6 +48,16 @@ def spe_limit(residual_eigenvalues: np.ndarray, level: float = 0.95) -> SpeLimit
             return SpeLimit(level, float(theta1 * inner ** (1.0 / h0)), "Jackson and Mudholkar (1979)", float(h0))
     g, h = theta2 / theta1, theta1**2 / theta2
     return SpeLimit(level, float(g * chi2_ppf(level, h)), "Box (1954) g chi2(h), since h0 <= 0", float(h0))
+
+
+def beyond_limit(values: np.ndarray, limit: float | None) -> np.ndarray:
+    """Which rows lie beyond ``limit``. A limit of 0 means nothing was discarded: the rows
+    the model was fitted on then have no discarded part, and what a computed SPE shows is
+    rounding, so none is beyond."""
+    values = np.asarray(values)
+    if limit is None or limit <= 0:
+        return np.zeros(values.shape, dtype=bool)
+    return values > limit
 
 
 def t2_limit(k: int, n: int, level: float = 0.95) -> float | None:
