@@ -580,7 +580,8 @@ def principal_axis_loadings(r: np.ndarray, m: int, iterations: int = 50) -> np.n
     if m == 0:
         return np.zeros((p, 0))
     try:
-        h2 = 1.0 - 1.0 / np.diag(np.linalg.inv(r))
+        with np.errstate(divide="ignore", invalid="ignore"):  # a singular R: the SMCs fall back below
+            h2 = 1.0 - 1.0 / np.diag(np.linalg.inv(r))
     except np.linalg.LinAlgError:
         h2 = np.max(np.abs(r - np.eye(p)), axis=1)
     h2 = np.clip(np.nan_to_num(h2, nan=0.5), 0.05, 0.995)
