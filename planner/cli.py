@@ -73,7 +73,7 @@ def _add_audit_options(p: argparse.ArgumentParser) -> None:
     p.add_argument("--no-pdf", action="store_true", help="write record.json only")
     p.add_argument("--engine", default="auto", choices=["auto", "memory", "stream", "dask"],
                    help="memory, stream (chunks, for files larger than memory), dask (a folder or glob of parts); "
-                        "auto streams CSV/Parquet files over 256 MB")
+                        "auto streams CSV/Parquet files that would take over a quarter of the free memory")
     p.add_argument("--scheduler", default=None, help="with --engine dask: the address of an existing cluster")
     p.add_argument("--quiet", action="store_true", help="no progress bar")
 

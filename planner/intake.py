@@ -29,6 +29,10 @@ MISSING_SPELLINGS = frozenset(
 MISSING_POLICIES = ("listwise", "mean", "fail")
 #: Values beyond this magnitude are refused: their squares overflow double precision.
 MAX_MAGNITUDE = 1e150
+#: Rows of a Parquet file decoded at a time by the in-memory reader.
+PARQUET_BATCH_ROWS = 65_536
+#: Cells from which a numeric block is copied by two threads.
+COPY_IN_PARALLEL = 4_000_000
 #: How many rows a usable table needs at the least.
 MIN_ROWS = 3
 #: Distinct integers count as an identifier by their order alone from this many rows on.
@@ -103,6 +107,9 @@ class IntakeResult:
     text_format: TextFormat | None = None
     notes: list[dict] = field(default_factory=list)
     sheet: str | None = None
+    #: (minimum, maximum, exact zeros) per used column over the rows used, when the reader
+    #: gathered them and no row was dropped or filled in; else None.
+    column_extremes: tuple | None = None
 
     def input_section(self) -> dict:
         """The ``input`` section of the record."""
@@ -350,36 +357,66 @@ def _arrow_numeric(kind) -> bool:
 
 
 def _arrow_columns(table) -> list:
-    """The columns of an Arrow table for :func:`type_column`: numeric ones as float64 views
-    (NaN for missing) into one column-major block, filled chunk by chunk straight from
-    Arrow's buffers, so a numeric column is copied once; dates and times as
+    """The columns of an Arrow table for :func:`type_column` (see :func:`_arrow_pieces`)."""
+    return _arrow_pieces(table.schema, table.num_rows, [table])
+
+
+def _arrow_pieces(schema, num_rows: int, pieces) -> list:
+    """The columns of a table that arrives in pieces of rows (a Parquet file's row groups),
+    for :func:`type_column`: numeric ones as float64 views (NaN for missing) into one
+    column-major block, filled piece by piece straight from Arrow's buffers, so that a
+    numeric value is copied once and only one piece is held at a time; dates and times as
     :class:`DateColumn`; anything else as a pandas Series of its cells."""
     import pyarrow as pa
     import pyarrow.compute as pc
 
-    numeric = [j for j, f in enumerate(table.schema) if _arrow_numeric(f.type)]
-    block = np.empty((table.num_rows, len(numeric)), order="F")
-    out: list = [None] * table.num_columns
+    numeric = [j for j, f in enumerate(schema) if _arrow_numeric(f.type)]
+    others = [j for j in range(len(schema)) if j not in set(numeric)]
+    block = np.empty((num_rows, len(numeric)), order="F")
+    kept_chunks: dict[int, list] = {j: [] for j in others}
+    stats = ColumnStats.empty(len(numeric))
+
+    def fill(table, first_row: int, slots) -> None:
+        for slot in slots:
+            offset = first_row
+            for chunk in table.column(numeric[slot]).chunks:
+                end = offset + len(chunk)
+                if pa.types.is_null(chunk.type):
+                    block[offset:end, slot] = np.nan
+                    stats.missing[slot] += len(chunk)
+                else:
+                    as_float = chunk if pa.types.is_float64(chunk.type) else pc.cast(chunk, pa.float64())
+                    if as_float.null_count:
+                        as_float = pc.fill_null(as_float, np.nan)
+                    values = _arrow_values(as_float)
+                    block[offset:end, slot] = values
+                    stats.add(slot, values)  # while the piece is in the processor's cache
+                offset = end
+
+    first_row = 0
+    for table in pieces:
+        # Two threads share a large copy (numpy copies without the interpreter lock): most
+        # of its cost is the first touch of the block's memory, which the kernel serves per thread.
+        if table.num_rows * len(numeric) >= COPY_IN_PARALLEL:
+            half = len(numeric) // 2
+            helper = threading.Thread(target=fill, args=(table, first_row, range(half, len(numeric))))
+            helper.start()
+            fill(table, first_row, range(half))
+            helper.join()
+        else:
+            fill(table, first_row, range(len(numeric)))
+        for j in others:
+            kept_chunks[j].extend(table.column(j).chunks)
+        first_row += table.num_rows
+    out: list = [None] * len(schema)
     for slot, j in enumerate(numeric):
-        offset = 0
-        for chunk in table.column(j).chunks:
-            end = offset + len(chunk)
-            if pa.types.is_null(chunk.type):
-                block[offset:end, slot] = np.nan
-            else:
-                as_float = chunk if pa.types.is_float64(chunk.type) else pc.cast(chunk, pa.float64())
-                if as_float.null_count:
-                    as_float = pc.fill_null(as_float, np.nan)
-                block[offset:end, slot] = _arrow_values(as_float)
-            offset = end
-        out[j] = block[:, slot]
-    for j in range(table.num_columns):
-        if out[j] is None:
-            column = table.column(j)
-            if pa.types.is_temporal(column.type):
-                out[j] = DateColumn(len(column), int(column.null_count), column.cast(pa.string()).to_pandas())
-            else:
-                out[j] = column.to_pandas()
+        out[j] = ReadColumn(block[:, slot], stats.of(slot))
+    for j in others:
+        column = pa.chunked_array(kept_chunks[j], type=schema.field(j).type)
+        if pa.types.is_temporal(column.type):
+            out[j] = DateColumn(len(column), int(column.null_count), column.cast(pa.string()).to_pandas())
+        else:
+            out[j] = column.to_pandas()
     return out
 
 
@@ -387,6 +424,47 @@ def _arrow_values(array) -> np.ndarray:
     """The values of a float64 Arrow array without nulls, as a view of its data buffer
     (Arrow's own to_numpy imports pandas, about half a second)."""
     return np.frombuffer(array.buffers()[1], dtype=np.float64, count=len(array), offset=array.offset * 8)
+
+
+@dataclass
+class ColumnStats:
+    """Per-column missing count, extremes (NaN ignored) and exact zeros, gathered while a
+    reader copies the values, so that no later pass over the whole table is needed for them."""
+
+    missing: np.ndarray
+    low: np.ndarray
+    high: np.ndarray
+    zeros: np.ndarray
+
+    @classmethod
+    def empty(cls, p: int) -> "ColumnStats":
+        return cls(np.zeros(p, dtype=np.int64), np.full(p, np.inf), np.full(p, -np.inf), np.zeros(p, dtype=np.int64))
+
+    def add(self, slot: int, values: np.ndarray) -> None:
+        if values.size == 0:
+            return
+        low, high = values.min(), values.max()
+        if np.isnan(low) or np.isnan(high):
+            self.missing[slot] += int(np.count_nonzero(np.isnan(values)))
+            low, high = np.fmin.reduce(values), np.fmax.reduce(values)
+        self.low[slot] = np.fmin(self.low[slot], low)
+        self.high[slot] = np.fmax(self.high[slot], high)
+        self.zeros[slot] += int(np.count_nonzero(values == 0))
+
+    def of(self, slot: int) -> tuple[int, float, float, int]:
+        return int(self.missing[slot]), float(self.low[slot]), float(self.high[slot]), int(self.zeros[slot])
+
+
+@dataclass
+class ReadColumn:
+    """A numeric column as a reader typed it (float64, NaN for missing), with the
+    :class:`ColumnStats` it gathered while copying the values."""
+
+    values: np.ndarray
+    stats: tuple[int, float, float, int]  # missing, low, high, zeros
+
+    def __len__(self) -> int:
+        return len(self.values)
 
 
 @dataclass
@@ -449,14 +527,24 @@ def read_text_table(raw: bytes, name: str) -> tuple[list[str], list, TextFormat,
 def read_parquet_table(path: Path, name: str) -> tuple[list[str], list]:
     import pyarrow.parquet as pq
 
+    import pyarrow as pa
+
+    def batches(reader):
+        for batch in reader.iter_batches(batch_size=PARQUET_BATCH_ROWS, use_threads=True):
+            yield pa.Table.from_batches([batch])
+
     try:
-        # The file reader, not read_table's dataset layer, which costs seconds on a table
-        # of many thousands of columns.
-        table = pq.ParquetFile(path, memory_map=True).read()
+        # The file reader, not read_table's dataset layer (which costs seconds on a table of
+        # many thousands of columns), in batches of rows read piece by piece: a whole row
+        # group decoded at once holds about twice its size in Arrow's memory.
+        reader = pq.ParquetFile(path, pre_buffer=False, buffer_size=1 << 20)
+        schema = reader.schema_arrow
+        header = [str(c) for c in schema.names]
+        return header, _arrow_pieces(schema, reader.metadata.num_rows, batches(reader))
+    except InputError:
+        raise
     except Exception as exc:  # pyarrow raises several types for corrupt files
         raise InputError(f"{name} is not a readable Parquet file ({type(exc).__name__})", "re-export it")
-    header = [str(c) for c in table.column_names]
-    return header, _arrow_columns(table)
 
 
 def read_excel_table(path: Path, name: str, sheet: str | None) -> tuple[list[str], list, str]:
@@ -502,6 +590,7 @@ class TypedColumn:
     bad_examples: list[str]
     n_bad: int
     dates: bool = False
+    stats: tuple[int, float, float, int] | None = None  # missing, low, high, zeros, when the reader gathered them
 
 
 def _to_number(cells, decimal: str) -> tuple[np.ndarray, np.ndarray]:
@@ -529,9 +618,11 @@ def _to_number(cells, decimal: str) -> tuple[np.ndarray, np.ndarray]:
 def type_column(name: str, cells, decimal: str) -> TypedColumn:
     """Decide whether a column is numeric; keep the non-numeric examples for the message.
 
-    ``cells`` is a float array when the reader already typed the column as numbers, a
-    :class:`DateColumn` for dates, else a pandas Series of cells.
+    ``cells`` is a :class:`ReadColumn` or a float array when the reader already typed the
+    column as numbers, a :class:`DateColumn` for dates, else a pandas Series of cells.
     """
+    if isinstance(cells, ReadColumn):
+        return TypedColumn(name, cells.values, None, cells.stats[0], [], 0, stats=cells.stats)
     if isinstance(cells, np.ndarray):
         return TypedColumn(name, cells, None, _count_nan(cells), [], 0)
     if isinstance(cells, DateColumn):
@@ -847,7 +938,9 @@ def load(
 
     # Infinity is an error, not a value (DESIGN.md, intake); so is a value whose square
     # overflows, since every second moment would be infinite. Both show in the extremes.
-    extremes = {col: _extremes(typed[col].values, typed[col].missing) for col in kept}
+    extremes = {
+        col: typed[col].stats[1:3] if typed[col].stats else _extremes(typed[col].values, typed[col].missing) for col in kept
+    }
     for col in kept:
         low, high = extremes[col]
         v = typed[col].values
@@ -986,4 +1079,8 @@ def load(
         text_format=fmt,
         notes=notes,
         sheet=meta["sheet"],
+        column_extremes=(
+            (low, high, np.array([typed[c].stats[3] for c in kept]))
+            if not rows_dropped and not imputed and all(typed[c].stats for c in kept) else None
+        ),
     )

@@ -101,16 +101,28 @@ class Moments:
 
     # ------------------------------------------------------------------ building
     @classmethod
-    def from_array(cls, x: np.ndarray, columns: list[str], full: bool = True, block_rows: int = BLOCK_ROWS) -> "Moments":
+    def from_array(
+        cls, x: np.ndarray, columns: list[str], full: bool = True, block_rows: int = BLOCK_ROWS,
+        extremes: tuple[np.ndarray, np.ndarray, np.ndarray] | None = None, with_extremes: bool = True,
+    ) -> "Moments":
         """Moments of a whole array, in blocks of rows that stay in the processor's cache
         (each block's moments merged in as a chunk; the result does not depend on the
-        block size beyond rounding)."""
+        block size beyond rounding). ``extremes`` (minimum, maximum, zeros per column of
+        exactly these rows, when the reader already gathered them) spares those passes;
+        ``with_extremes=False`` leaves them for the caller to set (:meth:`set_extremes`)."""
         moments = cls(columns, full=full)
         for start in range(0, max(x.shape[0], 1), block_rows):
-            moments.update(x[start : start + block_rows])
+            moments.update(x[start : start + block_rows], with_extremes and extremes is None)
+        if extremes is not None:
+            moments.set_extremes(*extremes)
         return moments
 
-    def update(self, chunk: np.ndarray) -> "Moments":
+    def set_extremes(self, minimum: np.ndarray, maximum: np.ndarray, zeros: np.ndarray) -> None:
+        """Set the per-column minimum, maximum and count of exact zeros (known already)."""
+        self.minimum, self.maximum = np.asarray(minimum, float).copy(), np.asarray(maximum, float).copy()
+        self.zeros = np.asarray(zeros, dtype=np.int64).copy()
+
+    def update(self, chunk: np.ndarray, extremes: bool = True) -> "Moments":
         """Add the rows of ``chunk`` (shape ``(m, p)``, NaN for missing) and return self.
 
         The chunk's own moments are computed with two passes over the chunk (its mean,
@@ -132,13 +144,14 @@ class Moments:
             if chunk.shape[0] == 0:
                 return self
             sums = np.ones(chunk.shape[0]) @ chunk
-        other = Moments._of_complete_rows(chunk, self.columns, self.full, sums, self.shift if self.n else None)
+        other = Moments._of_complete_rows(chunk, self.columns, self.full, sums, self.shift if self.n else None, extremes)
         self._merge_in(other)
         return self
 
     @staticmethod
     def _of_complete_rows(
         x: np.ndarray, columns: list[str], full: bool = True, sums: np.ndarray | None = None, shift: np.ndarray | None = None,
+        extremes: bool = True,
     ) -> "Moments":
         """Two-pass moments of complete rows: deviations d from the first mean, then the
         exact central sums from d and its mean c (which is rounding-sized), folded in
@@ -146,7 +159,8 @@ class Moments:
         sum (d - c)(d - c)^T = D^T D - m c c^T, sum (d - c)^3 = S3 - 3c S2 + 2m c^3,
         sum (d - c)^4 = S4 - 4c S3 + 6c^2 S2 - 3m c^4.
         The mean is returned as ``shift`` (the given one, else the first mean) and the
-        offset (first mean - shift) + c."""
+        offset (first mean - shift) + c. Without ``extremes`` the minimum, maximum and zero
+        count are left empty (the caller knows them)."""
         m = x.shape[0]
         ones = np.ones(m)
         mean = (ones @ x if sums is None else sums) / m
@@ -172,9 +186,9 @@ class Moments:
             full=full,
             m3=s3 - 3.0 * c * s2 + 2.0 * m * c**3,
             m4=s4 - 4.0 * c * s3 + 6.0 * c * c * s2 - 3.0 * m * c**4,
-            minimum=x.min(axis=0),
-            maximum=x.max(axis=0),
-            zeros=np.count_nonzero(x == 0, axis=0).astype(np.int64),
+            minimum=x.min(axis=0) if extremes else np.full(len(columns), np.inf),
+            maximum=x.max(axis=0) if extremes else np.full(len(columns), -np.inf),
+            zeros=np.count_nonzero(x == 0, axis=0).astype(np.int64) if extremes else np.zeros(len(columns), dtype=np.int64),
             missing=np.zeros(len(columns), dtype=np.int64),
             rows_seen=0,
         )

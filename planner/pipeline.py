@@ -15,6 +15,7 @@ from . import __version__, intake as intake_mod
 from .analysis.components import analyse_components, components_section, decomposition_section
 from .analysis.diagnostics import WIDE_FEATURES, Thresholds, diagnostics_section, run_diagnostics, wide_diagnostics_section
 from .analysis.discarded import discarded_section
+from .analysis.rowpass import model_row_figures
 from .analysis.scaling import ScalingEvidence, choose_scaling, make_scaling, unit_of
 from .analysis.profile import column_profiles
 from .errors import InputError
@@ -177,9 +178,19 @@ class AuditResult:
         return render_html(self.record, fragment=True)
 
 
-def compute_moments(data: np.ndarray, columns: list[str], missing_per_column: dict[str, int], full: bool = True) -> Moments:
-    """Moments of the rows used; the missing counts are those of the input, before the policy."""
-    moments = Moments.from_array(data, columns, full=full)
+def compute_moments(data: np.ndarray, columns: list[str], missing_per_column: dict[str, int], full: bool = True,
+                    extremes: tuple | None = None) -> Moments:
+    """Moments of the rows used; the missing counts are those of the input, before the policy.
+    A long table is cut into spans walked in parallel (planner.parallel), their Moments
+    merged in span order."""
+    from .parallel import run_spans
+
+    parts = run_spans(len(data), lambda a, b: Moments.from_array(data[a:b], columns, full=full, with_extremes=extremes is None))
+    moments = parts[0]
+    for part in parts[1:]:
+        moments = moments.merge(part)
+    if extremes is not None:
+        moments.set_extremes(*extremes)
     moments.missing = np.array([missing_per_column.get(c, 0) for c in columns], dtype=np.int64)
     return moments
 
@@ -272,32 +283,41 @@ def run_audit(source, options: AuditOptions | None = None) -> AuditResult:
     rulebook = load_rulebook(options.rules)
     n, p = result.data.shape
     wide = p >= n or p > WIDE_FEATURES
-    moments = compute_moments(result.data, result.columns_used, result.missing_per_column, full=not wide)
+    moments = compute_moments(result.data, result.columns_used, result.missing_per_column, full=not wide,
+                              extremes=result.column_extremes)
+    thresholds = thresholds_from(rulebook)
     if wide:
-        diag_section = wide_diagnostics_section(
-            moments, thresholds_from(rulebook), result.rows_dropped_missing, result.rows_read
-        )
+        diagnostics = None
+        diag_section = wide_diagnostics_section(moments, thresholds, result.rows_dropped_missing, result.rows_read)
     else:
+        # The matrix-level diagnostics now; the outlier screen comes with the pass over the rows.
         diagnostics = run_diagnostics(
-            moments,
-            result.data,
-            result.row_labels,
-            result.row_numbers,
-            thresholds_from(rulebook),
-            rows_dropped=result.rows_dropped_missing,
-            rows_read=result.rows_read,
+            moments, None, [], np.empty(0), thresholds, rows_dropped=result.rows_dropped_missing, rows_read=result.rows_read,
         )
         diag_section = diagnostics_section(diagnostics)
+
+    def components_for(scaling):
+        evidence = analyse_components(
+            moments,
+            result.data,
+            scaling,
+            seed=options.seed,
+            share=float(rulebook.threshold("kept_share_low", 0.80)),
+            permutation=options.parallel_null == "permutation",
+        )
+        return (evidence, *choose_components(evidence, options))
+
     scaling = scaling_for(options.scaling, moments, result.data, diag_section, rulebook)
-    evidence = analyse_components(
-        moments,
-        result.data,
-        scaling,
-        seed=options.seed,
-        share=float(rulebook.threshold("kept_share_low", 0.80)),
-        permutation=options.parallel_null == "permutation",
-    )
-    chosen, override = choose_components(evidence, options)
+    evidence, chosen, override = components_for(scaling)
+    figures = None
+    if diagnostics is not None:
+        figures, diag_section = screen_rows(result, moments, diagnostics, thresholds, evidence, chosen)
+        seen = scaling_for(options.scaling, moments, result.data, diag_section, rulebook)
+        if seen.method != scaling.method:  # --scaling auto, and the screen found many outlying rows
+            scaling = seen
+            evidence, chosen, override = components_for(scaling)
+            d = evidence.decomposition
+            figures = model_row_figures(result.data, scaling.center, scaling.scale, d.loadings, d.eigenvalues, chosen)
     alternatives = alternatives_for(evidence, chosen, moments, rulebook, result.data)
     discarded = discarded_section(
         evidence,
@@ -312,6 +332,7 @@ def run_audit(source, options: AuditOptions | None = None) -> AuditResult:
         target_name=result.target_name,
         signal_share=float(rulebook.threshold("target_signal_discarded", 0.05)),
         feature_plans=feature_plans_of(alternatives),
+        model_figures=figures,
     )
     sections = {
         "diagnostics": diag_section,
@@ -325,19 +346,19 @@ def run_audit(source, options: AuditOptions | None = None) -> AuditResult:
 
 
 def engine_for(source, options: AuditOptions) -> str:
-    """``memory`` for DataFrames, workbooks and ordinary files; ``stream`` for large CSV and
-    Parquet files with ``--engine auto``; what was asked for otherwise."""
+    """``memory`` for DataFrames, workbooks and ordinary files; ``stream`` for CSV and
+    Parquet files too large to read whole comfortably, with ``--engine auto``
+    (:func:`planner.streaming.should_stream`); what was asked for otherwise."""
     from pathlib import Path
 
     if options.engine in ("memory", "dask"):
         return options.engine
     if isinstance(source, (str, Path)) and Path(source).is_file():
-        from .streaming import AUTO_STREAM_BYTES, can_stream
+        from .streaming import should_stream
 
-        kind = can_stream(Path(source))
         if options.engine == "stream":
             return "stream"
-        if kind and Path(source).stat().st_size > AUTO_STREAM_BYTES and options.missing != "mean":
+        if options.missing != "mean" and should_stream(Path(source)):
             return "stream"
     elif options.engine == "stream" and not isinstance(source, (str, Path)):
         raise InputError("--engine stream reads a file, not a DataFrame", "pass the path of a CSV or Parquet file")
@@ -429,3 +450,25 @@ def plan_sections(alternatives, options: AuditOptions, rulebook: Rulebook, colum
             f"the component plan was taken by default (no --plan); choose the recommended one with --plan {choice.recommended}"
         )
     return section
+
+
+def screen_rows(result: intake_mod.IntakeResult, moments: Moments, diagnostics, thresholds: Thresholds, evidence, chosen: int):
+    """One pass over the rows for the squared Mahalanobis distances (the outlier screen,
+    attached to ``diagnostics``), SPE and T-squared; returns the model's row figures and the
+    diagnostics section with the screen."""
+    from .analysis.outliers import screen_of_distances
+    from .analysis.rowpass import mahalanobis_distances, one_pass_row_figures
+
+    d, sc = evidence.decomposition, evidence.scaling
+    spec = diagnostics.spectrum
+    if d.loadings.shape[1] == moments.p:
+        both = one_pass_row_figures(result.data, sc.center, sc.scale, d.loadings, d.eigenvalues, chosen, spec.rank)
+        figures, d2 = both.model, both.mahalanobis_d2
+    else:
+        figures, d2 = model_row_figures(result.data, sc.center, sc.scale, d.loadings, d.eigenvalues, chosen), None
+    if d2 is None:
+        d2 = mahalanobis_distances(result.data, moments, spec)
+    diagnostics.outliers = screen_of_distances(
+        d2, moments.n, moments.p, spec, result.row_labels, result.row_numbers, quantile=thresholds.outlier_quantile,
+    )
+    return figures, diagnostics_section(diagnostics)

@@ -39,8 +39,13 @@ HEAD_ROWS = 20_000
 #: At most this much of the file is read for the screening rows.
 HEAD_BYTES = 16 * 1024 * 1024
 SAMPLE_ROWS = 20_000
-#: ``--engine auto`` streams files larger than this.
+#: ``--engine auto`` streams a file only above this size, and only when reading it whole
+#: would take more than AUTO_STREAM_SHARE of the memory available.
 AUTO_STREAM_BYTES = 256 * 1024 * 1024
+AUTO_STREAM_SHARE = 0.25
+#: Bytes the in-memory engine holds at its peak per byte of a CSV file (the bytes, the
+#: decoded text, pyarrow's table, the matrix), about; for Parquet, twice the matrix.
+CSV_FOOTPRINT = 4
 TOP_ROWS = 10
 CHART_ROWS = 5000
 
@@ -54,6 +59,46 @@ def can_stream(path: Path) -> str | None:
     if path.suffix.lower() in (".xlsx", ".xlsm", ".xls"):
         return None
     return "csv"
+
+
+def memory_available() -> int | None:
+    """Bytes of memory available to a new allocation (Linux: MemAvailable), or None."""
+    try:
+        with open("/proc/meminfo", encoding="ascii") as handle:
+            for line in handle:
+                if line.startswith("MemAvailable:"):
+                    return int(line.split()[1]) * 1024
+    except OSError:
+        pass
+    try:
+        return os.sysconf("SC_AVPHYS_PAGES") * os.sysconf("SC_PAGE_SIZE")
+    except (ValueError, OSError, AttributeError):
+        return None
+
+
+def in_memory_footprint(path: Path, kind: str) -> int:
+    """About the peak memory of reading ``path`` whole with the in-memory engine."""
+    if kind == "parquet":
+        import pyarrow.parquet as pq
+
+        meta = pq.ParquetFile(path).metadata
+        return 2 * 8 * meta.num_rows * meta.num_columns
+    return CSV_FOOTPRINT * path.stat().st_size
+
+
+def should_stream(path: Path) -> bool:
+    """``--engine auto``: stream a CSV or Parquet file above AUTO_STREAM_BYTES whose whole
+    reading would take more than AUTO_STREAM_SHARE of the memory available (4 GB assumed
+    where the system does not say); read the others in memory, which is faster."""
+    kind = can_stream(path)
+    if kind is None or path.stat().st_size <= AUTO_STREAM_BYTES:
+        return False
+    available = memory_available() or 4 * 1024**3
+    try:
+        footprint = in_memory_footprint(path, kind)
+    except Exception:  # an unreadable Parquet footer: the reader will say what is wrong
+        return False
+    return footprint > AUTO_STREAM_SHARE * available
 
 
 def _progress(total: int | None, quiet: bool, unit: str):

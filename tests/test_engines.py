@@ -230,3 +230,19 @@ def test_the_screened_head_holds_whole_lines_only(tmp_path, monkeypatch):
     monkeypatch.setattr(streaming, "HEAD_BYTES", len(raw) + 1)
     monkeypatch.setattr(streaming, "HEAD_ROWS", 20)
     assert streaming._head_bytes(tmp_path / "t.csv").splitlines() == raw.splitlines()[:21]
+
+
+def test_auto_streams_only_what_would_crowd_the_memory(tmp_path, monkeypatch):
+    # Our contract: --engine auto reads a file whole unless it is above 256 MB and its whole
+    # reading would take more than a quarter of the memory available.
+    import planner.streaming as streaming
+
+    path = tmp_path / "t.csv"
+    _table(200).to_csv(path, index=False)
+    monkeypatch.setattr(streaming, "AUTO_STREAM_BYTES", 1024)
+    monkeypatch.setattr(streaming, "memory_available", lambda: 10**12)
+    assert not streaming.should_stream(path)
+    monkeypatch.setattr(streaming, "memory_available", lambda: 4 * path.stat().st_size)
+    assert streaming.should_stream(path)
+    monkeypatch.setattr(streaming, "AUTO_STREAM_BYTES", 10**9)
+    assert not streaming.should_stream(path)

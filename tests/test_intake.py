@@ -355,3 +355,25 @@ def test_parquet_typed_columns_are_read_by_their_types(tmp_path):
     from_frame = intake.load(frame)
     assert "dates" in {e["column"]: e["reason"] for e in from_frame.excluded}["when"]
     np.testing.assert_array_equal(from_frame.data, res.data)
+
+
+def test_extremes_gathered_while_reading_equal_those_of_the_matrix(tmp_path):
+    # The reader's per-column minimum, maximum and zero count (gathered while copying) are
+    # those numpy finds on the matrix of the rows used.
+    from planner.moments import Moments
+
+    rng = np.random.default_rng(21)
+    frame = pd.DataFrame({"a": np.round(rng.standard_normal(70_000), 1), "b": rng.integers(-3, 4, 70_000).astype(float),
+                          "c": rng.uniform(1, 2, 70_000)})
+    frame.to_parquet(tmp_path / "z.parquet")
+    res = intake.load(tmp_path / "z.parquet")
+    assert res.column_extremes is not None
+    low, high, zeros = res.column_extremes
+    np.testing.assert_array_equal(low, res.data.min(axis=0))
+    np.testing.assert_array_equal(high, res.data.max(axis=0))
+    np.testing.assert_array_equal(zeros, (res.data == 0).sum(axis=0))
+    plain = Moments.from_array(res.data, res.columns_used)
+    given = Moments.from_array(res.data, res.columns_used, extremes=res.column_extremes)
+    np.testing.assert_array_equal(plain.minimum, given.minimum)
+    np.testing.assert_array_equal(plain.zeros, given.zeros)
+    np.testing.assert_array_equal(plain.comoment, given.comoment)

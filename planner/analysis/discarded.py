@@ -79,10 +79,13 @@ def discarded_section(
     target_name: str | None = None,
     signal_share: float = 0.05,
     feature_plans: dict[str, list[int]] | None = None,
+    model_figures=None,
 ) -> dict:
     """The ``discarded`` section of the record for ``k`` kept components. With a target,
     the plans of ``feature_plans`` (plan id -> kept column indices) are fitted in the same
-    folds as the components (``target.plan_fits``)."""
+    folds as the components (``target.plan_fits``). ``model_figures`` (SPE and T-squared of
+    every row, :class:`planner.analysis.rowpass.ModelRowFigures`) saves the pass over the
+    rows when the caller has made it already."""
     from .components import BOOTSTRAP_MAX_WORK, RESAMPLE_MAX_ROWS, matrix_of_rows, scaler_of_rows
     from .monitoring import beyond_limit, contributions, row_figures, spe_limit, t2_limit
     from .rowpass import largest_first, model_row_figures
@@ -121,7 +124,7 @@ def discarded_section(
     if rows is None:
         section["rows_reason"] = "the rows were not kept: per-row figures are not available"
         return section
-    figures = model_row_figures(rows, sc.center, sc.scale, d.loadings, d.eigenvalues, k)
+    figures = model_figures or model_row_figures(rows, sc.center, sc.scale, d.loadings, d.eigenvalues, k)
     spe_lim, t2_lim = section["spe_limit"], section["t2_limit"]
     n_rows = len(figures.spe)
     over_spe = beyond_limit(figures.spe, spe_lim)

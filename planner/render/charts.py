@@ -149,17 +149,22 @@ def scree_chart(eigenvalues, null_percentile, null_mean, broken_stick, chosen, l
     x = np.arange(1, q + 1)
     fig, ax = plt.subplots(figsize=(6.4, 3.2))
     ev = np.asarray(eigenvalues[:q], float)
+    def series(values):  # a figure over the components it exists for (p >= n: the non-zero ones)
+        y = np.asarray(values[:q], float)
+        return x[: len(y)], y
+
     if low is not None and high is not None:
-        ax.fill_between(x, np.asarray(low[:q], float), np.minimum(np.asarray(high[:q], float), ev.max() * 1.5),
-                        color=GREEN, alpha=0.12, linewidth=0, label="95% interval")
+        xs, lo = series(low)
+        ax.fill_between(xs, lo, np.minimum(series(high)[1], ev.max() * 1.5), color=GREEN, alpha=0.12, linewidth=0,
+                        label="95% interval")
     ax.plot(x, ev, "-o", color=INK, markersize=3.5, linewidth=1.2, label="eigenvalue")
     ax.plot(x[:chosen], ev[:chosen], "o", color=GREEN, markersize=6, label=f"kept ({chosen})")
     if null_percentile is not None:
-        ax.plot(x, np.asarray(null_percentile[:q], float), "--", color=OCHRE, linewidth=1.1, label="parallel analysis, 95th percentile")
+        ax.plot(*series(null_percentile), "--", color=OCHRE, linewidth=1.1, label="parallel analysis, 95th percentile")
     if null_mean is not None:
-        ax.plot(x, np.asarray(null_mean[:q], float), ":", color=OCHRE, linewidth=1.0, label="parallel analysis, mean")
+        ax.plot(*series(null_mean), ":", color=OCHRE, linewidth=1.0, label="parallel analysis, mean")
     if broken_stick is not None:
-        ax.plot(x, np.asarray(broken_stick[:q], float), "-.", color=SLATE, linewidth=1.0, label="broken stick")
+        ax.plot(*series(broken_stick), "-.", color=SLATE, linewidth=1.0, label="broken stick")
     ax.set_xlabel("component")
     ax.set_ylabel("eigenvalue")
     ax.set_xticks(x if q <= 20 else x[::2])
@@ -180,7 +185,8 @@ def cumulative_chart(cumulative, share, chosen, low=None, high=None) -> str:
     fig, ax = plt.subplots(figsize=(6.4, 2.6))
     cum = np.asarray(cumulative[:q], float) * 100
     if low is not None and high is not None:
-        ax.fill_between(x, np.asarray(low[:q], float) * 100, np.asarray(high[:q], float) * 100, color=GREEN, alpha=0.15, linewidth=0, label="95% interval")
+        lo, hi = np.asarray(low[:q], float) * 100, np.asarray(high[:q], float) * 100
+        ax.fill_between(x[: len(lo)], lo, hi[: len(lo)], color=GREEN, alpha=0.15, linewidth=0, label="95% interval")
     ax.bar(x, cum, color=[GREEN if i < chosen else "#c8ced3" for i in range(q)], width=0.7)
     ax.axhline(share * 100, color=OCHRE, linestyle="--", linewidth=1.0, label=f"{share:.0%} share")
     ax.set_ylim(0, 100)
