@@ -605,17 +605,18 @@ def test_p_at_least_n_route_gives_the_nonzero_eigenvalues_of_r():
     x = frame.to_numpy()
     values, vectors = descending_eigh(np.corrcoef(x, rowvar=False))
     assert np.all(np.abs(values[7:]) < 1e-10)  # rank n - 1
-    assert len(d["eigenvalues"]) == 7
-    np.testing.assert_allclose(d["eigenvalues"], values[:7], rtol=0, atol=1e-9)
+    # All 11 eigenvalues of the 11 x 11 matrix, the last 4 exactly 0.
+    assert len(d["eigenvalues"]) == 11 and d["eigenvalues"][7:] == [0.0] * 4
+    np.testing.assert_allclose(d["eigenvalues"], values, rtol=0, atol=1e-9)
     assert float(np.sum(d["eigenvalues"])) == pytest.approx(11.0, rel=1e-9)
-    np.testing.assert_allclose(d["explained_ratio"], values[:7] / 11.0, rtol=0, atol=1e-10)
+    np.testing.assert_allclose(d["explained_ratio"], values / 11.0, rtol=0, atol=1e-10)
     assert np.min(-np.diff(values[:7])) > 1e-6  # distinct, so the directions are defined
     loadings = loadings_matrix(rec, MTCARS_FEATURES)
-    assert loadings.shape == (11, 7)
-    assert_same_up_to_sign(loadings, vectors[:, :7], atol=1e-9)
+    assert loadings.shape == (11, 11)
+    assert_same_up_to_sign(loadings[:, :7], vectors[:, :7], atol=1e-9)
     # Also scikit-learn's PCA of the standardised rows.
     pca = PCA(svd_solver="full").fit(StandardScaler().fit_transform(x))
-    np.testing.assert_allclose(d["explained_ratio"], pca.explained_variance_ratio_[:7], rtol=0, atol=1e-10)
+    np.testing.assert_allclose(d["explained_ratio"][:7], pca.explained_variance_ratio_[:7], rtol=0, atol=1e-10)
 
 
 def test_clopper_pearson_interval_equals_scipy():

@@ -66,7 +66,11 @@ def kmo(r: np.ndarray, columns: list[str], spec: Spectrum, n: int, floor: float 
     off = ~np.eye(p, dtype=bool)
     r2 = np.where(off, r**2, 0.0)
     a2 = np.where(off, partial**2, 0.0)
-    overall = float(r2.sum() / (r2.sum() + a2.sum()))
+    total = float(r2.sum() + a2.sum())
+    if total == 0.0:  # every correlation and every partial correlation is exactly 0
+        none = {c: None for c in columns}
+        return KmoResult(None, None, none, none, [], floor, "undefined: every correlation between the features is 0")
+    overall = float(r2.sum() / total)
     row_r, row_a = r2.sum(axis=1), a2.sum(axis=1)
     with np.errstate(invalid="ignore", divide="ignore"):
         per = row_r / (row_r + row_a)
