@@ -371,7 +371,8 @@ def _arrow_pieces(schema, num_rows: int, pieces) -> list:
     import pyarrow.compute as pc
 
     numeric = [j for j, f in enumerate(schema) if _arrow_numeric(f.type)]
-    others = [j for j in range(len(schema)) if j not in set(numeric)]
+    numeric_set = set(numeric)
+    others = [j for j in range(len(schema)) if j not in numeric_set]
     block = np.empty((num_rows, len(numeric)), order="F")
     kept_chunks: dict[int, list] = {j: [] for j in others}
     stats = ColumnStats.empty(len(numeric))
@@ -383,14 +384,11 @@ def _arrow_pieces(schema, num_rows: int, pieces) -> list:
                 end = offset + len(chunk)
                 if pa.types.is_null(chunk.type):
                     block[offset:end, slot] = np.nan
-                    stats.missing[slot] += len(chunk)
                 else:
                     as_float = chunk if pa.types.is_float64(chunk.type) else pc.cast(chunk, pa.float64())
                     if as_float.null_count:
                         as_float = pc.fill_null(as_float, np.nan)
-                    values = _arrow_values(as_float)
-                    block[offset:end, slot] = values
-                    stats.add(slot, values)  # while the piece is in the processor's cache
+                    block[offset:end, slot] = _arrow_values(as_float)
                 offset = end
 
     first_row = 0
@@ -405,6 +403,7 @@ def _arrow_pieces(schema, num_rows: int, pieces) -> list:
             helper.join()
         else:
             fill(table, first_row, range(len(numeric)))
+        stats.add(block[first_row : first_row + table.num_rows])  # while the piece is still in cache
         for j in others:
             kept_chunks[j].extend(table.column(j).chunks)
         first_row += table.num_rows
@@ -440,16 +439,19 @@ class ColumnStats:
     def empty(cls, p: int) -> "ColumnStats":
         return cls(np.zeros(p, dtype=np.int64), np.full(p, np.inf), np.full(p, -np.inf), np.zeros(p, dtype=np.int64))
 
-    def add(self, slot: int, values: np.ndarray) -> None:
-        if values.size == 0:
+    def add(self, rows: np.ndarray) -> None:
+        """Fold in a piece of rows (all columns)."""
+        if rows.size == 0:
             return
-        low, high = values.min(), values.max()
-        if np.isnan(low) or np.isnan(high):
-            self.missing[slot] += int(np.count_nonzero(np.isnan(values)))
-            low, high = np.fmin.reduce(values), np.fmax.reduce(values)
-        self.low[slot] = np.fmin(self.low[slot], low)
-        self.high[slot] = np.fmax(self.high[slot], high)
-        self.zeros[slot] += int(np.count_nonzero(values == 0))
+        low, high = rows.min(axis=0), rows.max(axis=0)  # NaN where a column holds one
+        holes = np.isnan(low)
+        if holes.any():
+            piece = rows[:, holes]
+            self.missing[holes] += np.count_nonzero(np.isnan(piece), axis=0)
+            low[holes], high[holes] = np.fmin.reduce(piece, axis=0), np.fmax.reduce(piece, axis=0)
+        self.low = np.fmin(self.low, low)
+        self.high = np.fmax(self.high, high)
+        self.zeros += np.count_nonzero(rows == 0, axis=0)
 
     def of(self, slot: int) -> tuple[int, float, float, int]:
         return int(self.missing[slot]), float(self.low[slot]), float(self.high[slot]), int(self.zeros[slot])

@@ -28,8 +28,8 @@ from .monitoring import spe_limit
 EXPLAINED = 1e-10
 #: The exchange pass stops after this many improving swaps.
 MAX_SWAPS = 200
-#: A pass of exchanges costs about |S| p^2 operations; the passes a size may make are
-#: capped so that they stay within this many.
+#: A pass of exchanges costs about |S| p^2 operations; the passes of one search (every
+#: size it tries) are capped so that together they stay within this many.
 EXCHANGE_BUDGET = 2e9
 
 
@@ -43,14 +43,17 @@ def subset_share(c: np.ndarray, subset: list[int]) -> float:
     ----------
     G. P. McCabe (1984), "Principal variables", Technometrics 26(2), 137-144.
     """
-    total = float(np.trace(c))
     if not subset:
         return 0.0
-    s = list(subset)
-    values, vectors = np.linalg.eigh(c[np.ix_(s, s)])
-    keep = values > values[-1] * len(s) * np.finfo(float).eps * 100
-    a = (c[:, s] @ vectors[:, keep]) / np.sqrt(values[keep])
-    return float(np.sum(a * a) / total)
+    a = _explained_part(c, list(subset))
+    return float(np.sum(a * a) / np.trace(c))
+
+
+def _explained_part(c: np.ndarray, subset: list[int]) -> np.ndarray:
+    """A with A A^T = C[:, S] C[S, S]^+ C[S, :] (the inverse on the non-null eigenvectors)."""
+    values, vectors = np.linalg.eigh(c[np.ix_(subset, subset)])
+    keep = values > values[-1] * len(subset) * np.finfo(float).eps * 100
+    return (c[:, subset] @ vectors[:, keep]) / np.sqrt(values[keep])
 
 
 def _gains(residual: np.ndarray, candidates: np.ndarray, scale: np.ndarray) -> np.ndarray:
@@ -68,9 +71,7 @@ def _residual(c: np.ndarray, subset: list[int]) -> np.ndarray:
     on the features of S."""
     if not subset:
         return c.copy()
-    values, vectors = np.linalg.eigh(c[np.ix_(subset, subset)])
-    keep = values > values[-1] * len(subset) * np.finfo(float).eps * 100
-    a = (c[:, subset] @ vectors[:, keep]) / np.sqrt(values[keep])
+    a = _explained_part(c, subset)
     return c - a @ a.T
 
 
