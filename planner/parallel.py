@@ -13,7 +13,7 @@ import os
 from concurrent.futures import ThreadPoolExecutor
 
 #: Rows a span. Tables shorter than two spans are walked by one thread.
-SPAN_ROWS = 262_144
+SPAN_ROWS = 65_536
 
 
 def spans(n: int) -> list[tuple[int, int]]:

@@ -5,23 +5,43 @@ the Python API both call it. It computes; it writes nothing (see :mod:`planner.o
 """
 from __future__ import annotations
 
+import importlib
 import platform
+import threading
 from dataclasses import dataclass, field
 from importlib import metadata
+from typing import TYPE_CHECKING
 
 import numpy as np
 
 from . import __version__, intake as intake_mod
-from .analysis.components import analyse_components, components_section, decomposition_section
-from .analysis.diagnostics import WIDE_FEATURES, Thresholds, diagnostics_section, run_diagnostics, wide_diagnostics_section
-from .analysis.discarded import discarded_section
-from .analysis.rowpass import model_row_figures
-from .analysis.scaling import ScalingEvidence, choose_scaling, make_scaling, unit_of
-from .analysis.profile import column_profiles
 from .errors import InputError
 from .moments import Moments
 from .record import SCHEMA_VERSION, jsonable, new_record_id, seal, utc_now
 from .rulebook import Rulebook, load_rulebook
+
+if TYPE_CHECKING:  # the analysis modules are imported where they are used (see warm_imports)
+    from .analysis.diagnostics import Thresholds
+
+#: The modules of the functional core: they import scipy, which takes a noticeable part of
+#: a second, so an audit imports them on a second thread while the table is being read.
+ANALYSIS_MODULES = (
+    "planner.analysis.components", "planner.analysis.diagnostics", "planner.analysis.discarded",
+    "planner.analysis.rowpass", "planner.analysis.scaling", "planner.analysis.profile", "planner.analysis.alternatives",
+)
+
+
+def warm_imports() -> threading.Thread:
+    """Start importing the analysis modules on a second thread. Whoever imports one of them
+    meanwhile waits for that import to finish (Python's per-module import locks), so this
+    only moves the work off the critical path; intake imports none of them."""
+    def run() -> None:
+        for name in ANALYSIS_MODULES:
+            importlib.import_module(name)
+
+    thread = threading.Thread(target=run, name="axisledger-imports", daemon=True)
+    thread.start()
+    return thread
 
 SCALINGS = ("auto", "standardize", "center", "robust", "pareto")
 PLANS = ("components", "feature_subset", "vif_pruning")
@@ -91,6 +111,8 @@ def software_versions() -> dict:
 
 def thresholds_from(rulebook: Rulebook) -> Thresholds:
     """The thresholds the analysis itself uses, taken from the rulebook in force."""
+    from .analysis.diagnostics import Thresholds
+
     defaults = Thresholds()
     return Thresholds(
         condition_index=float(rulebook.threshold("condition_index_high", defaults.condition_index)),
@@ -203,6 +225,8 @@ def build_record(
     sections: dict,
 ) -> dict:
     """Assemble the record from the intake and the analysis results, judge it, seal it."""
+    from .analysis.profile import column_profiles
+
     created = utc_now()
     record = {
         "schema_version": SCHEMA_VERSION,
@@ -264,6 +288,7 @@ def run_audit(source, options: AuditOptions | None = None) -> AuditResult:
         from .distributed import run_dask_audit
 
         return run_dask_audit(source, options)
+    warm_imports()
     result = intake_mod.load(
         source,
         columns=options.columns,
@@ -280,6 +305,11 @@ def run_audit(source, options: AuditOptions | None = None) -> AuditResult:
             else f"--components {options.components} is more than the {result.rows_used - 1} components {result.rows_used} rows allow",
             f"give a number from 1 to {min(len(result.columns_used), result.rows_used - 1)}",
         )
+    from .analysis.components import analyse_components, components_section, decomposition_section
+    from .analysis.diagnostics import WIDE_FEATURES, diagnostics_section, run_diagnostics, wide_diagnostics_section
+    from .analysis.discarded import discarded_section
+    from .analysis.rowpass import model_row_figures
+
     rulebook = load_rulebook(options.rules)
     n, p = result.data.shape
     wide = p >= n or p > WIDE_FEATURES
@@ -386,6 +416,8 @@ def choose_components(evidence, options: AuditOptions) -> tuple[int, dict | None
 
 def scaling_for(requested: str, moments: Moments, rows, diagnostics: dict, rulebook: Rulebook):
     """The scaling asked for, or the one the ``auto`` policy chooses from the diagnostics."""
+    from .analysis.scaling import ScalingEvidence, choose_scaling, make_scaling, unit_of
+
     if requested != "auto":
         return make_scaling(requested, moments, rows, [f"{requested} was requested (--scaling {requested})"], requested)
     outliers = diagnostics.get("outliers") or {}
@@ -456,8 +488,9 @@ def screen_rows(result: intake_mod.IntakeResult, moments: Moments, diagnostics, 
     """One pass over the rows for the squared Mahalanobis distances (the outlier screen,
     attached to ``diagnostics``), SPE and T-squared; returns the model's row figures and the
     diagnostics section with the screen."""
+    from .analysis.diagnostics import diagnostics_section
     from .analysis.outliers import screen_of_distances
-    from .analysis.rowpass import mahalanobis_distances, one_pass_row_figures
+    from .analysis.rowpass import mahalanobis_distances, model_row_figures, one_pass_row_figures
 
     d, sc = evidence.decomposition, evidence.scaling
     spec = diagnostics.spectrum
