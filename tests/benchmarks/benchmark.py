@@ -127,12 +127,19 @@ def section_memory() -> list[tuple[str, str, str]]:
     )
     # The audit walks its row passes on both cores (planner.parallel), so the floor is timed
     # with BLAS on one thread and on two, and the ratio is taken against the faster floor.
-    # The runs alternate, so that a drift of the machine's speed touches all three alike.
-    floor_1, floor_2, audit = [], [], []
-    for _ in range(3):
-        floor_1.append(_peak_rss_mb([sys.executable, "-c", floor_code, str(data)]))
-        floor_2.append(_peak_rss_mb(["env", "OPENBLAS_NUM_THREADS=2", sys.executable, "-c", floor_code, str(data)]))
-        audit.append(_peak_rss_mb(_audit_cmd(data, folder / "out", "--engine", "memory")))
+    # The runs alternate, and the order rotates from round to round, so that neither a drift
+    # of the machine's speed nor a place right after another large process favours one.
+    commands = {
+        "floor_1": [sys.executable, "-c", floor_code, str(data)],
+        "floor_2": ["env", "OPENBLAS_NUM_THREADS=2", sys.executable, "-c", floor_code, str(data)],
+        "audit": _audit_cmd(data, folder / "out", "--engine", "memory"),
+    }
+    runs: dict[str, list] = {name: [] for name in commands}
+    names = list(commands)
+    for round_ in range(3):
+        for name in names[round_:] + names[:round_]:
+            runs[name].append(_peak_rss_mb(commands[name]))
+    floor_1, floor_2, audit = runs["floor_1"], runs["floor_2"], runs["audit"]
     (f1_s, f1_mb), (f2_s, _), (audit_s, audit_mb) = min(floor_1), min(floor_2), min(audit)
     floor_s = min(f1_s, f2_s)
     return [
