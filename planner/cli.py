@@ -200,6 +200,8 @@ def cmd_apply(args, argv: list[str]) -> int:
     what = (f"{summary['components']} component(s)" if summary["plan"] == "components"
             else f"plan {summary['plan']}: {summary['components']} original feature(s)")
     print(f"wrote {summary['out']}: {summary['rows']} row(s), {what}, {summary['beyond_limit']} beyond a 95% limit")
+    if summary["spe_not_computed"]:
+        print("  spe and beyond_limit are empty: the SPE needs every feature column of the record, not only the kept ones")
     if summary["incomplete_rows"]:
         print(f"  {summary['incomplete_rows']} row(s) have a missing feature value: their scores are empty")
     if summary["extra_columns"]:

@@ -15,6 +15,7 @@ import re
 import sys
 import threading
 import zipfile
+from concurrent.futures import ThreadPoolExecutor
 from dataclasses import dataclass, field
 from pathlib import Path
 
@@ -385,7 +386,9 @@ def _arrow_pieces(schema, num_rows: int, pieces) -> list:
                 if pa.types.is_null(chunk.type):
                     block[offset:end, slot] = np.nan
                 else:
-                    as_float = chunk if pa.types.is_float64(chunk.type) else pc.cast(chunk, pa.float64())
+                    # An unsafe cast rounds integers beyond 2^53 to the nearest double, as a text
+                    # reader does; a safe one would refuse them.
+                    as_float = chunk if pa.types.is_float64(chunk.type) else pc.cast(chunk, pa.float64(), safe=False)
                     if as_float.null_count:
                         as_float = pc.fill_null(as_float, np.nan)
                     block[offset:end, slot] = _arrow_values(as_float)
@@ -397,10 +400,10 @@ def _arrow_pieces(schema, num_rows: int, pieces) -> list:
         # of its cost is the first touch of the block's memory, which the kernel serves per thread.
         if table.num_rows * len(numeric) >= COPY_IN_PARALLEL:
             half = len(numeric) // 2
-            helper = threading.Thread(target=fill, args=(table, first_row, range(half, len(numeric))))
-            helper.start()
-            fill(table, first_row, range(half))
-            helper.join()
+            with ThreadPoolExecutor(max_workers=1) as pool:
+                other_half = pool.submit(fill, table, first_row, range(half, len(numeric)))
+                fill(table, first_row, range(half))
+                other_half.result()  # re-raises whatever the other thread met
         else:
             fill(table, first_row, range(len(numeric)))
         stats.add(block[first_row : first_row + table.num_rows])  # while the piece is still in cache

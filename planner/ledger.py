@@ -103,7 +103,7 @@ def apply_file(record_path: str | Path, data_path: str | Path, out: str | Path, 
     if len(set(header)) != len(header):
         raise InputError(f"{Path(data_path).name} has duplicate column names", "give every column a distinct name")
     plan = plan_from_record(record)
-    missing = [c for c in plan.columns if c not in header]
+    missing = [c for c in plan.required_columns() if c not in header]
     if missing:
         raise InputError(
             f"{Path(data_path).name} lacks {len(missing)} feature column(s) of the plan: {', '.join(missing[:10])}",
@@ -116,7 +116,7 @@ def apply_file(record_path: str | Path, data_path: str | Path, out: str | Path, 
     import pandas as pd
 
     numeric = {}
-    for c in plan.columns:
+    for c in (c for c in plan.columns if c in header):
         typed = type_column(c, cells[header.index(c)], decimal)
         if typed.values is None:
             raise InputError(f"column {c!r} of {Path(data_path).name} is not numeric (e.g. {typed.bad_examples[0]!r})", "fix the values")
@@ -129,7 +129,10 @@ def apply_file(record_path: str | Path, data_path: str | Path, out: str | Path, 
     scored.to_csv(buffer, index=False, lineterminator="\n", float_format="%.10g")
     write_bytes_atomic(out, buffer.getvalue().encode("utf-8"))
     extra = [c for c in header if c not in plan.columns and c != plan.id_column]
-    incomplete = int(scored["spe"].isna().sum())
+    # A plan on original features needs only its kept columns; without the others, no SPE.
+    spe_not_computed = any(c not in header for c in plan.columns) or getattr(plan, "coefficients", True) is None
+    incomplete = 0 if spe_not_computed else int(scored["spe"].isna().sum())
     return {"rows": len(scored), "components": plan.k, "plan": getattr(plan, "plan_id", "components"),
+            "spe_not_computed": spe_not_computed,
             "kept": list(plan.get_feature_names_out()), "extra_columns": extra, "incomplete_rows": incomplete,
             "beyond_limit": int(scored["beyond_limit"].fillna(0).sum()), "out": str(out)}

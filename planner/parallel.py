@@ -4,8 +4,10 @@ A long table is cut into spans of SPAN_ROWS rows; each span is walked by one thr
 blocks, with the linear algebra library held to one thread of its own (threadpoolctl), so
 that the threads do not compete with its threads for the same cores. The spans depend on
 the number of rows alone, never on the number of cores, and their results are combined in
-span order: the figures are the same on any machine (the Moments of the spans are merged
-with the pairwise formulas, exactly as the chunks of a stream are).
+span order (the Moments of the spans merged with the pairwise formulas, exactly as the
+chunks of a stream are), so the way the work is cut and summed does not change with the
+machine; what the linear algebra library itself does with a product may still differ in
+the last bits from one processor to another.
 """
 from __future__ import annotations
 

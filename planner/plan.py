@@ -55,6 +55,9 @@ class ReductionPlan:
     def k(self) -> int:
         return self.loadings.shape[1]
 
+    def required_columns(self) -> list[str]:
+        return list(self.columns)
+
     def get_feature_names_out(self, input_features=None) -> np.ndarray:
         return np.array([f"PC{j + 1}" for j in range(self.k)], dtype=object)
 
@@ -94,32 +97,50 @@ class ReductionPlan:
         out = pd.DataFrame(scores, columns=list(self.get_feature_names_out()))
         out["spe"] = spe
         out["t2"] = t2
-        beyond = np.zeros(len(out), dtype=bool)
-        if self.spe_limit is not None:
-            beyond |= spe > self.spe_limit
+        beyond = spe_beyond(spe, self.spe_limit, np.sum(z**2, axis=1))
         if self.t2_limit is not None:
             beyond |= t2 > self.t2_limit
-        flag = pd.Series(beyond.astype(int), dtype="Int64")
-        flag[np.isnan(spe)] = pd.NA
-        out["beyond_limit"] = flag
+        out["beyond_limit"] = limit_flags(beyond, spe)
         return out
+
+
+#: An SPE below this share of the row's own squared norm is rounding, not a residual.
+ROUNDING = 1e-24
+
+
+def spe_beyond(spe: np.ndarray, limit: float | None, norm2: np.ndarray) -> np.ndarray:
+    """Rows of new data beyond the plan's SPE limit. A limit of 0 (nothing discarded in the
+    data the plan was made from) still flags a row whose residual is real, one that breaks
+    an exact relation of those data; an SPE at the rounding of the row's norm is none."""
+    if limit is None:
+        return np.zeros(len(spe), dtype=bool)
+    with np.errstate(invalid="ignore"):
+        return (spe > limit) & (spe > ROUNDING * norm2)
+
+
+def limit_flags(beyond: np.ndarray, spe: np.ndarray) -> pd.Series:
+    """1 beyond a limit, 0 within, empty where the row could not be scored."""
+    flag = pd.Series(beyond.astype(int), dtype="Int64")
+    flag[np.isnan(spe)] = pd.NA
+    return flag
 
 
 @dataclass
 class FeaturePlan:
     """A recorded plan that keeps original features (``feature_subset`` or ``vif_pruning``).
 
-    ``transform`` gives the kept columns as they are; ``score_rows`` adds the SPE of the
-    row's reconstruction from them, z_hat = z_kept B in the scaled units of the record
+    ``transform`` gives the kept columns as they are; only they need to be present.
+    ``score_rows`` adds, when the other feature columns are present too, the SPE of the row
+    rebuilt from the kept ones, z_hat = z_kept B in the scaled units of the record
     (z = (x - center) / scale), and a flag beyond the plan's 95% SPE limit.
     """
 
     plan_id: str
-    columns: list[str]
     kept: list[str]
-    center: np.ndarray
-    scale: np.ndarray
-    coefficients: np.ndarray  # (len(kept), len(columns))
+    rebuilt: list[str]
+    center: dict[str, float]
+    scale: dict[str, float]
+    coefficients: np.ndarray | None  # (len(kept), len(rebuilt)); None when the record does not hold them
     spe_limit: float | None
     id_column: str | None = None
     record_id: str | None = None
@@ -129,15 +150,15 @@ class FeaturePlan:
     def from_record(cls, record: dict, plan_id: str) -> "FeaturePlan":
         row = next(r for r in record["alternatives"] if r["plan_id"] == plan_id)
         dec = record["decomposition"]
-        columns = list(record["input"]["columns_used"])
         rec = row["reconstruction"]
+        coefficients = rec.get("coefficients")
         return cls(
             plan_id=plan_id,
-            columns=columns,
             kept=list(rec["kept"]),
-            center=np.array([dec["center"][c] for c in columns], dtype=float),
-            scale=np.array([dec["scale"][c] for c in columns], dtype=float),
-            coefficients=np.array(rec["coefficients"], dtype=float).reshape(len(rec["kept"]), len(columns)),
+            rebuilt=list(rec["rebuilt"]),
+            center=dict(dec["center"]),
+            scale=dict(dec["scale"]),
+            coefficients=None if coefficients is None else np.array(coefficients, dtype=float).reshape(len(rec["kept"]), len(rec["rebuilt"])),
             spe_limit=rec.get("spe_limit"),
             id_column=record["input"].get("id_column"),
             record_id=record.get("record_id"),
@@ -148,6 +169,13 @@ class FeaturePlan:
     def k(self) -> int:
         return len(self.kept)
 
+    @property
+    def columns(self) -> list[str]:
+        return self.kept + self.rebuilt
+
+    def required_columns(self) -> list[str]:
+        return list(self.kept)
+
     def get_feature_names_out(self, input_features=None) -> np.ndarray:
         return np.array(self.kept, dtype=object)
 
@@ -155,27 +183,46 @@ class FeaturePlan:
         """A recorded plan is already fitted; present for pipeline compatibility."""
         return self
 
-    def _matrix(self, frame) -> np.ndarray:
-        return ReductionPlan._matrix(self, frame)  # the same checks: every feature column is read
+    def _read(self, frame) -> tuple[np.ndarray, np.ndarray | None]:
+        """The kept columns and, when all present (and the record holds the coefficients),
+        the others, in their own units."""
+        if not isinstance(frame, pd.DataFrame):
+            values = np.asarray(frame, dtype=float)
+            if values.ndim != 2 or values.shape[1] not in (len(self.kept), len(self.columns)):
+                raise InputError(f"expected {len(self.kept)} or {len(self.columns)} feature columns, got {values.shape}",
+                                 "pass the plan's kept columns, or all its columns, in order")
+            frame = pd.DataFrame(values, columns=self.columns[: values.shape[1]])
+        missing = [c for c in self.kept if c not in frame.columns]
+        if missing:
+            raise InputError(
+                f"the data lacks {len(missing)} kept column(s) of the plan: {', '.join(missing[:10])}",
+                "give a table with the columns the plan keeps",
+            )
+        kept = frame[self.kept].apply(pd.to_numeric, errors="coerce").to_numpy(dtype=float)
+        if self.coefficients is None or any(c not in frame.columns for c in self.rebuilt):
+            return kept, None
+        return kept, frame[self.rebuilt].apply(pd.to_numeric, errors="coerce").to_numpy(dtype=float)
 
     def transform(self, frame) -> np.ndarray:
         """The kept columns of the rows, in their own units."""
-        x = self._matrix(frame)
-        return x[:, [self.columns.index(c) for c in self.kept]]
+        return self._read(frame)[0]
 
     def score_rows(self, frame) -> pd.DataFrame:
-        """The kept columns, ``spe`` and ``beyond_limit`` (1 beyond the 95% SPE limit)."""
-        x = self._matrix(frame)
-        z = (x - self.center) / self.scale
-        kept = [self.columns.index(c) for c in self.kept]
-        residual = z - z[:, kept] @ self.coefficients
+        """The kept columns, ``spe`` and ``beyond_limit`` (1 beyond the 95% SPE limit); both
+        empty when the other feature columns are not given."""
+        kept, rebuilt = self._read(frame)
+        out = pd.DataFrame(kept, columns=self.kept)
+        if rebuilt is None:
+            out["spe"] = np.nan
+            out["beyond_limit"] = pd.Series([pd.NA] * len(out), dtype="Int64")
+            return out
+        z_kept = (kept - [self.center[c] for c in self.kept]) / [self.scale[c] for c in self.kept]
+        z_rebuilt = (rebuilt - [self.center[c] for c in self.rebuilt]) / [self.scale[c] for c in self.rebuilt]
+        residual = z_rebuilt - z_kept @ self.coefficients  # the kept columns rebuild themselves exactly
         spe = np.sum(residual**2, axis=1)
-        out = pd.DataFrame(x[:, kept], columns=self.kept)
         out["spe"] = spe
-        beyond = spe > self.spe_limit if self.spe_limit is not None else np.zeros(len(out), dtype=bool)
-        flag = pd.Series(beyond.astype(int), dtype="Int64")
-        flag[np.isnan(spe)] = pd.NA
-        out["beyond_limit"] = flag
+        beyond = spe_beyond(spe, self.spe_limit, np.sum(z_kept**2, axis=1) + np.sum(z_rebuilt**2, axis=1))
+        out["beyond_limit"] = limit_flags(beyond, spe)
         return out
 
 

@@ -377,3 +377,25 @@ def test_extremes_gathered_while_reading_equal_those_of_the_matrix(tmp_path):
     np.testing.assert_array_equal(plain.minimum, given.minimum)
     np.testing.assert_array_equal(plain.zeros, given.zeros)
     np.testing.assert_array_equal(plain.comoment, given.comoment)
+
+
+@pytest.mark.parametrize("kind", ["csv", "parquet"])
+def test_integers_beyond_two_to_the_53_are_rounded_like_text(tmp_path, monkeypatch, kind):
+    # Python's float() of the integer's text is the reference (correctly rounded); the copy
+    # is forced onto two threads, so that an error on the second one would surface.
+    monkeypatch.setattr(intake, "COPY_IN_PARALLEL", 1)
+    big = [1234567890123456789 + 7919 * i for i in range(60)]
+    frame = pd.DataFrame({"order_id": big, "a": np.linspace(0, 1, 60) ** 2, "b": np.cos(np.arange(60))})
+    path = tmp_path / f"big.{kind}"
+    if kind == "csv":
+        frame.to_csv(path, index=False)
+    else:
+        frame.to_parquet(path)
+    res = intake.load(path, columns=["order_id", "a", "b"])
+    np.testing.assert_array_equal(res.data[:, 0], [float(v) for v in big])
+
+
+def test_a_file_that_cannot_be_read_for_its_hash_is_an_input_error(tmp_path):
+    digest = intake.FileDigest(path=tmp_path / "gone.csv")
+    with pytest.raises(InputError, match="cannot read the input to hash it"):
+        digest.hexdigest()

@@ -153,3 +153,33 @@ def test_rows_with_a_missing_value_are_counted_not_used():
     assert m.n == len(complete) == 29_997 and m.rows_seen == 30_000
     assert list(m.missing) == [1, 1, 1]
     np.testing.assert_allclose(m.covariance(), np.cov(complete, rowvar=False), rtol=1e-12)
+
+
+def test_spans_on_two_threads_give_numpy_and_scipy_figures(monkeypatch):
+    # planner.parallel cuts the rows into spans run on two threads: the merged Moments equal
+    # numpy.cov, and the row pass's squared Mahalanobis distances equal scipy's
+    # (scipy.spatial.distance.mahalanobis with the inverse covariance).
+    from scipy.spatial.distance import mahalanobis
+
+    from planner import parallel
+    from planner.analysis.collinearity import spectrum
+    from planner.analysis.rowpass import mahalanobis_distances, one_pass_row_figures
+    from planner.pipeline import compute_moments
+
+    monkeypatch.setattr(parallel, "SPAN_ROWS", 700)
+    monkeypatch.setattr(parallel, "cores", lambda: 2)
+    rng = np.random.default_rng(65)
+    x = np.asfortranarray(rng.standard_normal((5000, 4)) @ rng.uniform(-1, 1, (4, 4)) + 3.0)
+    cols = ["a", "b", "c", "d"]
+    assert len(parallel.spans(len(x))) == 7
+    m = compute_moments(x, cols, {})
+    np.testing.assert_allclose(m.covariance(), np.cov(x, rowvar=False), rtol=1e-12)
+    inverse = np.linalg.inv(np.cov(x, rowvar=False))
+    expected = np.array([mahalanobis(row, x.mean(axis=0), inverse) ** 2 for row in x[:300]])
+    spec = spectrum(m.correlation())
+    np.testing.assert_allclose(mahalanobis_distances(x, m, spec, block_rows=64)[:300], expected, rtol=1e-10)
+    values, vectors = np.linalg.eigh(m.covariance())
+    both = one_pass_row_figures(x, m.mean, np.ones(4), vectors[:, ::-1], values[::-1], 2, spec.rank, block_rows=64)
+    np.testing.assert_allclose(both.mahalanobis_d2[:300], expected, rtol=1e-10)
+    # A rank the model's directions do not match: the distances are left to the screen.
+    assert one_pass_row_figures(x, m.mean, np.ones(4), vectors[:, ::-1], values[::-1], 2, 3).mahalanobis_d2 is None

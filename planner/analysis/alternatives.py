@@ -274,6 +274,13 @@ def vif_pruning(r: np.ndarray, threshold: float) -> VifPruning:
     """
     kept = list(range(r.shape[0]))
     removed: list[tuple[int, float]] = []
+    if not np.all(np.isfinite(inflation_factors(r, kept))):
+        # Exact dependencies: the one-at-a-time rule removes, each time, the last feature in
+        # a dependency, which leaves the features that are independent of those before them
+        # in file order. Found in one pass, removed last first (the order the rule takes).
+        for j in sorted(dependent_in_order(r), reverse=True):
+            removed.append((j, np.inf))
+            kept.remove(j)
     inverse, since_fresh = None, 0
     while len(kept) > 1:
         if inverse is None or since_fresh >= FRESH_INVERSE_STEPS or len(kept) <= FRESH_INVERSE_SIZE:
@@ -294,6 +301,35 @@ def vif_pruning(r: np.ndarray, threshold: float) -> VifPruning:
             since_fresh += 1
     final = float(np.max(inflation_factors(r, kept))) if len(kept) > 1 else 1.0
     return VifPruning(kept, removed, final, threshold)
+
+
+def dependent_in_order(r: np.ndarray) -> list[int]:
+    """The features that are exact linear combinations of the features before them, taken
+    in file order: a Cholesky factor of R grown one feature at a time, a feature whose
+    residual variance given those kept before it is below rounding (relative to its own
+    variance) being left out. O(p^3) in all."""
+    from scipy.linalg import solve_triangular
+
+    p = r.shape[0]
+    tolerance = p * np.finfo(float).eps * 100
+    factor = np.zeros((p, p))
+    kept: list[int] = []
+    dependent: list[int] = []
+    for j in range(p):
+        if kept:
+            m = len(kept)
+            w = solve_triangular(factor[:m, :m], r[kept, j], lower=True, check_finite=False)
+            residual = r[j, j] - float(w @ w)
+        else:
+            w, residual = np.empty(0), r[j, j]
+        if residual <= tolerance * r[j, j]:
+            dependent.append(j)
+            continue
+        m = len(kept)
+        factor[m, :m] = w
+        factor[m, m] = np.sqrt(residual)
+        kept.append(j)
+    return dependent
 
 
 #: VIF pruning recomputes R[S, S]^-1 afresh at every step up to this many features, and
@@ -380,6 +416,7 @@ class Alternatives:
     b4_share: float | None = None
     b2_share: float | None = None
     reason: str | None = None
+    largest_eigenvalue: float = 0.0  # of C: the scale of rounding in its eigenvalues
 
 
 def _feature_plan(plan_id: str, c: np.ndarray, r: np.ndarray, kept: list[int]) -> FeaturePlan:
@@ -406,6 +443,7 @@ def plan_alternatives(c: np.ndarray | None, r: np.ndarray | None, loadings: np.n
         k, share, search, _feature_plan("feature_subset", c, r, search.subset), pruning,
         _feature_plan("vif_pruning", c, r, pruning.kept),
         b4=b4, b2=b2, b4_share=subset_share(c, b4), b2_share=subset_share(c, b2),
+        largest_eigenvalue=float(explained_ratio[0] * np.trace(c)),
     )
 
 
@@ -448,6 +486,32 @@ def choose_plan(alt: Alternatives, requested: str | None, because: str | None, s
     return PlanChoice(recommended, chosen, reasons, because)
 
 
+#: A plan's reconstruction coefficients are kept in the record up to this many numbers.
+MAX_RECONSTRUCTION_NUMBERS = 250_000
+
+
+def _reconstruction_entry(plan: FeaturePlan, columns: list[str], limit) -> dict:
+    """How the features a plan leaves out are rebuilt from those it keeps (for the SPE of a
+    row at apply time): coefficients kept ones x left-out ones; a kept feature rebuilds itself."""
+    rebuilt = [j for j in range(len(columns)) if j not in set(plan.kept)]
+    entry = {
+        "kept": _names(plan.kept, columns),
+        "rebuilt": _names(rebuilt, columns),
+        "residual_eigenvalues": plan.residual_eigenvalues,
+        "spe_limit": limit.value,
+        "spe_limit_method": limit.method,
+        "note": "each left-out scaled feature rebuilt from the kept ones as z_hat = z_kept B "
+                "(B = C[S, S]^-1 C[S, rest], least squares); SPE = ||z_rest - z_hat||^2",
+    }
+    if len(plan.kept) * len(rebuilt) <= MAX_RECONSTRUCTION_NUMBERS:
+        entry["coefficients"] = plan.coefficients[:, rebuilt]
+    else:
+        entry["coefficients"] = None
+        entry["coefficients_reason"] = (f"{len(plan.kept)} x {len(rebuilt)} coefficients are more than "
+                                        f"{MAX_RECONSTRUCTION_NUMBERS:,}: not kept, so apply leaves the SPE empty")
+    return entry
+
+
 def _names(indices: list[int], columns: list[str]) -> list[str]:
     return [columns[j] for j in indices]
 
@@ -456,9 +520,10 @@ def _set_aside(plan_id: str, alt: Alternatives, choice: PlanChoice) -> str:
     """Why a plan that was not taken was set aside, in words."""
     k = alt.k
     if plan_id == "components":
-        sub = alt.subset_plan
-        return (f"set aside for the feature subset: {len(sub.kept)} original feature(s) keep {sub.share:.1%}, "
-                f"at least what {k} component(s) keep ({alt.component_share:.1%})" if sub else "set aside")
+        taken = alt.subset_plan if choice.chosen == "feature_subset" else alt.pruning_plan
+        name = choice.chosen.replace("_", " ")
+        return (f"set aside for the {name} plan ({choice.because or 'recommended'}): {len(taken.kept)} original "
+                f"feature(s) keep {taken.share:.1%}, where {k} component(s) keep {alt.component_share:.1%}")
     if plan_id == "feature_subset":
         sub = alt.subset_plan
         return (f"needs {len(sub.kept)} of the features to keep {sub.share:.1%} of the variance, where {k} component(s) "
@@ -490,15 +555,12 @@ def alternatives_section(alt: Alternatives, choice: PlanChoice, columns: list[st
             rows.append({"plan_id": plan_id, "kind": plan_id, "kept": [], "size": None, "inputs_needed": None,
                          "variance_retained": None, "max_vif": None, "reason": alt.reason})
             continue
-        limit = spe_limit(plan.residual_eigenvalues, 0.95)
+        negligible = alt.largest_eigenvalue * len(columns) * np.finfo(float).eps * 100  # an exact zero, rounded
+        limit = spe_limit(plan.residual_eigenvalues, 0.95, negligible)
         row = {
             "plan_id": plan_id, "kind": plan_id, "kept": _names(plan.kept, columns), "size": len(plan.kept),
             "inputs_needed": len(plan.kept), "variance_retained": plan.share, "max_vif": plan.max_vif,
-            "reconstruction": {"kept": _names(plan.kept, columns), "coefficients": plan.coefficients,
-                               "residual_eigenvalues": plan.residual_eigenvalues,
-                               "spe_limit": limit.value, "spe_limit_method": limit.method,
-                               "note": "each scaled feature rebuilt from the kept ones as z_hat = z_kept B "
-                                       "(B = C[S, S]^+ C[S, :], least squares); SPE = ||z - z_hat||^2"},
+            "reconstruction": _reconstruction_entry(plan, columns, limit),
         }
         if plan_id == "feature_subset":
             s = alt.subset
@@ -536,7 +598,7 @@ def alternatives_section(alt: Alternatives, choice: PlanChoice, columns: list[st
         "chosen": choice.chosen,
         "reasons": list(choice.reasons),
         "because": choice.because,
-        "overridden": choice.chosen != choice.recommended,
+        "overridden": False,  # set by the caller, which knows whether --plan was given
         "policy": POLICY.format(ratio=size_ratio, vif=vif_threshold),
         "size_ratio": (len(alt.subset_plan.kept) / alt.k) if alt.subset_plan else None,
     }

@@ -11,9 +11,9 @@ import math
 
 import numpy as np
 
-#: 95th percentile of the Tracy-Widom law of order 1, Johnstone (2001), Table 1 (value from
-#: memory: 0.9793; the 90th is 0.4501 and the 99th 2.0234).
-TRACY_WIDOM_1_95 = 0.9793
+#: Percentiles of the Tracy-Widom law of order 1, Johnstone (2001), Table 1 (values from
+#: memory).
+TRACY_WIDOM_1 = {90.0: 0.4501, 95.0: 0.9793, 99.0: 2.0234}
 
 
 def _support(beta: float) -> tuple[float, float]:
@@ -80,20 +80,23 @@ def tracy_widom_edge(dof: int, p: int) -> tuple[float, float]:
     return s * s, s * (1.0 / math.sqrt(dof - 1) + 1.0 / math.sqrt(p)) ** (1.0 / 3.0)
 
 
-def marchenko_pastur_null(q: int, p: int, n: int, scale: float = 1.0) -> tuple[np.ndarray, np.ndarray]:
-    """Null eigenvalues (upper 95% bound and typical value) of the covariance (divisor
+def marchenko_pastur_null(q: int, p: int, n: int, scale: float = 1.0, percentile: float = 95.0) -> tuple[np.ndarray, np.ndarray]:
+    """Null eigenvalues (upper bound at ``percentile``, one of TRACY_WIDOM_1, and typical
+    value) of the covariance (divisor
     n - 1) of n rows of p independent features of variance ``scale``, for the q leading
     positions.
 
     The typical value of the i-th of the m = min(p, n - 1) non-zero eigenvalues is its
     classical location, the Marchenko-Pastur quantile at 1 - (i - 1/2) / m (for p > n - 1
     the dual law of ratio (n - 1) / p, times p / (n - 1)). The bound of the first position
-    is Johnstone's centre plus the 95% Tracy-Widom fluctuation; every other position gets
+    is Johnstone's centre plus the Tracy-Widom fluctuation; every other position gets
     the same excess over its classical location as the first one. Eigenvalues below the
     edge fluctuate less than the largest one, so the bound is conservative there (a weak
     component near the noise edge is kept a little less readily). Positions beyond m have
     null eigenvalue 0.
     """
+    if float(percentile) not in TRACY_WIDOM_1:
+        raise ValueError(f"the large-table null has the percentiles {sorted(TRACY_WIDOM_1)}, not {percentile}")
     dof = n - 1
     m = min(p, dof)
     gamma = p / dof
@@ -104,7 +107,7 @@ def marchenko_pastur_null(q: int, p: int, n: int, scale: float = 1.0) -> tuple[n
     positions = np.arange(1, min(q, m) + 1)
     location = factor * marchenko_pastur_quantile(1.0 - (positions - 0.5) / m, beta)
     mu, sigma = tracy_widom_edge(dof, p)
-    edge_bound = (mu + TRACY_WIDOM_1_95 * sigma) / dof
+    edge_bound = (mu + TRACY_WIDOM_1[float(percentile)] * sigma) / dof
     upper = location + (edge_bound - location[0]) if len(location) else location
     typical = np.zeros(q)
     bound = np.zeros(q)

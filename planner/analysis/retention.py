@@ -236,7 +236,7 @@ def parallel_analysis(
     q = len(lam)
     if permuted_rows is None and min(p, n - 1) > SIMULATION_MAX_DIM:
         scale = 1.0 if standardized or variances is None else float(np.mean(variances))
-        upper, mean = marchenko_pastur_null(q, p, n, scale)
+        upper, mean = marchenko_pastur_null(q, p, n, scale, percentile)
         return RuleResult(
             "parallel_analysis",
             _leading_run(lam > upper),
