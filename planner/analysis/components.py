@@ -7,6 +7,7 @@ from dataclasses import dataclass, field
 import numpy as np
 
 from ..moments import Moments
+from ..parallel import one_blas_thread
 from . import retention
 from .decomposition import Decomposition, Intervals, anderson_intervals, bootstrap_intervals, complete_basis, decompose
 from .retention import RuleResult
@@ -234,7 +235,8 @@ def analyse_components(
 ) -> ComponentEvidence:
     """Decompose, compute the intervals and every rule, and recommend k."""
     decomposition = decompose(moments, scaling, rows)
-    rules, note = evaluate_rules(decomposition, moments, scaling, rows, seed, share, draws, permutation)
+    with one_blas_thread():  # many small products: a second BLAS thread slows them down
+        rules, note = evaluate_rules(decomposition, moments, scaling, rows, seed, share, draws, permutation)
     k, reasons = recommend(rules, decomposition)
     intervals = None
     if rows is not None and moments.n * moments.p**2 <= BOOTSTRAP_MAX_WORK and moments.p < moments.n and moments.full:
