@@ -7,6 +7,8 @@ from __future__ import annotations
 import base64
 import io
 
+from .formatting import plan_name
+
 #: Palette of the record (see report_templates/record.css).
 INK = "#1d2731"
 GREEN = "#2f5d50"
@@ -128,7 +130,7 @@ def alternatives_chart(path_share, cumulative, plans) -> str:
         color, marker = marks[row["plan_id"]]
         ax.plot([row["size"]], [row["variance_retained"] * 100], marker, color=color, markersize=8 if row.get("chosen") else 6,
                 markeredgecolor=INK if row.get("chosen") else color,
-                label=f"{row['plan_id'].replace('_', ' ')} plan" + (" (chosen)" if row.get("chosen") else ""))
+                label=f"{plan_name(row['plan_id'])} plan" + (" (chosen)" if row.get("chosen") else ""))
     ax.set_ylim(0, 101)
     ax.set_xlim(0, max(m, q) + 1)
     ax.set_xlabel("number of inputs kept (components or original features)")

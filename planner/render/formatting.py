@@ -51,6 +51,14 @@ def names(items, limit: int = 12) -> str:
     return shown + (f" and {len(items) - limit} more" if len(items) > limit else "")
 
 
+#: How each plan of the alternatives is named in prose (its id is what --plan takes).
+PLAN_NAMES = {"components": "components", "feature_subset": "feature subset", "vif_pruning": "VIF pruning"}
+
+
+def plan_name(plan_id: str) -> str:
+    return PLAN_NAMES.get(plan_id, str(plan_id).replace("_", " "))
+
+
 class Formatters:
     """The formatting helpers as one object the templates receive as ``fmt``."""
 
@@ -58,4 +66,5 @@ class Formatters:
     pct = staticmethod(pct)
     p = staticmethod(p)
     names = staticmethod(names)
+    plan_name = staticmethod(plan_name)
     delimiter = staticmethod(delimiter)
