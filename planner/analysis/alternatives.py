@@ -31,6 +31,11 @@ MAX_SWAPS = 200
 #: A pass of exchanges costs about |S| p^2 operations; the passes of one search (every
 #: size it tries) are capped so that together they stay within this many.
 EXCHANGE_BUDGET = 2e9
+#: The greedy search and its exchanges are checked by exhaustive search when every subset of
+#: every size up to the one they found can be scored within this many subsets in all.
+EXHAUSTIVE_MAX_SUBSETS = 1_000_000
+#: Subsets scored at a time by the exhaustive search.
+EXHAUSTIVE_BATCH = 32_768
 
 
 def subset_share(c: np.ndarray, subset: list[int]) -> float:
@@ -86,6 +91,7 @@ class SubsetSearch:
     target: float
     swaps: int
     note: str | None = None
+    exhaustive: bool = False  # the size is the smallest possible and the subset the best of its size
 
 
 def greedy_path(c: np.ndarray, max_size: int | None = None) -> tuple[list[int], list[float]]:
@@ -163,6 +169,77 @@ def exchange(c: np.ndarray, subset: list[int], max_swaps: int = MAX_SWAPS) -> tu
     return s, swaps
 
 
+def _batch_shares(c: np.ndarray, c2: np.ndarray, subsets: np.ndarray) -> np.ndarray:
+    """McCabe's criterion, times trace(C), of each row of ``subsets`` (index arrays of one
+    size): trace(C[S, S]^-1 (C C)[S, S]), since C[S, :] C[:, S] = (C C)[S, S]. A subset in
+    which some feature is explained by the ones before it (its Cholesky pivot, the residual
+    variance given them, below EXPLAINED of its own variance) scores -inf: it explains no
+    more than a smaller subset."""
+    a = c[subsets[:, :, None], subsets[:, None, :]]
+    b = c2[subsets[:, :, None], subsets[:, None, :]]
+    diag = np.diagonal(a, axis1=1, axis2=2)
+    scores = np.full(len(subsets), -np.inf)
+    try:
+        pivots = np.diagonal(np.linalg.cholesky(a), axis1=1, axis2=2) ** 2
+        valid = np.all(pivots > EXPLAINED * diag, axis=1)
+    except np.linalg.LinAlgError:  # some are singular: sort them out one at a time
+        valid = np.zeros(len(subsets), dtype=bool)
+        for i, one in enumerate(a):
+            try:
+                pivots = np.diagonal(np.linalg.cholesky(one)) ** 2
+            except np.linalg.LinAlgError:
+                continue
+            valid[i] = bool(np.all(pivots > EXPLAINED * np.diagonal(one)))
+    if valid.any():
+        scores[valid] = np.trace(np.linalg.solve(a[valid], b[valid]), axis1=1, axis2=2)
+    return scores
+
+
+def best_subset_of_size(c: np.ndarray, size: int, c2: np.ndarray | None = None) -> tuple[list[int], float]:
+    """The subset of ``size`` features with the largest McCabe criterion, by scoring every
+    one of the C(p, size) subsets (ties: the first in lexicographic order), and its share.
+
+    References
+    ----------
+    G. P. McCabe (1984), "Principal variables", Technometrics 26(2), 137-144 (the criterion
+    and the search over all subsets of a size).
+    """
+    from itertools import combinations, islice
+
+    p = c.shape[0]
+    c2 = c @ c if c2 is None else c2
+    every = combinations(range(p), size)
+    best_score, best = -np.inf, None
+    while True:
+        batch = np.array(list(islice(every, EXHAUSTIVE_BATCH)), dtype=np.intp).reshape(-1, size)
+        if not len(batch):
+            break
+        scores = _batch_shares(c, c2, batch)
+        i = int(np.argmax(scores))
+        if scores[i] > best_score:
+            best_score, best = float(scores[i]), [int(j) for j in batch[i]]
+    if best is None:  # every subset of this size holds a dependency
+        return [], 0.0
+    return best, subset_share(c, best)
+
+
+def smallest_by_exhaustion(c: np.ndarray, target: float, largest: int) -> tuple[list[int], float] | None:
+    """The smallest subset, and the best of its size, whose share reaches ``target``,
+    searching every size from 1 to ``largest``; None when that is more than
+    EXHAUSTIVE_MAX_SUBSETS subsets in all, or when no size up to ``largest`` reaches it."""
+    from math import comb
+
+    p = c.shape[0]
+    if sum(comb(p, m) for m in range(1, largest + 1)) > EXHAUSTIVE_MAX_SUBSETS:
+        return None
+    c2 = c @ c
+    for size in range(1, largest + 1):
+        subset, share = best_subset_of_size(c, size, c2)
+        if subset and share >= target - 1e-12:
+            return subset, share
+    return None
+
+
 def principal_variables(c: np.ndarray, target: float, max_path: int = 1000) -> SubsetSearch:
     """The smallest subset whose share reaches ``target`` (the component plan's share).
 
@@ -191,11 +268,21 @@ def principal_variables(c: np.ndarray, target: float, max_path: int = 1000) -> S
         size -= 1
         best, best_share, swaps = trial, trial_share, swaps + trial_swaps
     note = None
-    if budget <= 0:
-        note = f"exchanges stopped at their budget ({swaps} made; each costs O(|S| p^2) with {p} features)"
+    exhaustive = smallest_by_exhaustion(c, target, size)
+    if exhaustive is not None:
+        found, found_share = exhaustive
+        if len(found) < size or found_share > best_share + 1e-12:
+            note = (f"the exhaustive search found a better subset than greedy selection with exchanges "
+                    f"({len(found)} feature(s) for {found_share:.4%}, against {size} for {best_share:.4%})")
+        best, best_share = found, found_share
+    else:
+        note = ("a heuristic: greedy selection with exchanges need not find the smallest subset nor the best of its "
+                "size, and searching every subset up to this size was beyond budget")
+        if budget <= 0:
+            note += f"; exchanges stopped at their budget ({swaps} made; each costs O(|S| p^2) with {p} features)"
     if len(order) < p and len(order) == max_path:
         note = ((note + "; ") if note else "") + f"the greedy path is shown for the first {max_path} sizes"
-    return SubsetSearch(order, shares, sorted(best), best_share, target, swaps, note)
+    return SubsetSearch(order, shares, sorted(best), best_share, target, swaps, note, exhaustive is not None)
 
 
 def jolliffe_b4(loadings: np.ndarray, k: int) -> list[int]:
@@ -375,6 +462,8 @@ def reconstruction(c: np.ndarray, subset: list[int]) -> tuple[np.ndarray, np.nda
 
 # ---------------------------------------------------------------------- the plans compared
 PLAN_KINDS = ("components", "feature_subset", "vif_pruning")
+#: How each plan is named in prose (its id is what --plan takes).
+PLAN_NAMES = {"components": "components", "feature_subset": "feature subset", "vif_pruning": "VIF pruning"}
 #: Above this many features the subset search is not run (its matrices are p x p and its
 #: exchange pass costs O(|S| p^2) a swap); the wide route never forms C at all.
 SUBSET_MAX_FEATURES = 2000
@@ -470,7 +559,8 @@ def recommend_plan(alt: Alternatives, size_ratio: float, vif_threshold: float) -
         ]
     why = []
     if m > size_ratio * k:
-        why.append(f"the feature subset needs {m} feature(s) to keep what {k} component(s) keep "
+        needs = "needs" if alt.subset.exhaustive else "needed, in a search that need not find the smallest subset,"
+        why.append(f"the feature subset {needs} {m} feature(s) to keep what {k} component(s) keep "
                    f"({sub.share:.1%} against {alt.component_share:.1%}), more than {size_ratio:g} times as many")
     if sub.max_vif > vif_threshold:
         why.append(f"the feature subset's largest VIF is {sub.max_vif:.3g}, above {vif_threshold:g}")
@@ -521,12 +611,13 @@ def _set_aside(plan_id: str, alt: Alternatives, choice: PlanChoice) -> str:
     k = alt.k
     if plan_id == "components":
         taken = alt.subset_plan if choice.chosen == "feature_subset" else alt.pruning_plan
-        name = choice.chosen.replace("_", " ")
+        name = PLAN_NAMES[choice.chosen]
         return (f"set aside for the {name} plan ({choice.because or 'recommended'}): {len(taken.kept)} original "
                 f"feature(s) keep {taken.share:.1%}, where {k} component(s) keep {alt.component_share:.1%}")
     if plan_id == "feature_subset":
         sub = alt.subset_plan
-        return (f"needs {len(sub.kept)} of the features to keep {sub.share:.1%} of the variance, where {k} component(s) "
+        needs = "needs" if alt.subset.exhaustive else "as found by a heuristic search, needs"
+        return (f"{needs} {len(sub.kept)} of the features to keep {sub.share:.1%} of the variance, where {k} component(s) "
                 f"keep {alt.component_share:.1%}" + (f"; largest VIF {sub.max_vif:.3g}" if sub.max_vif > 1.0 else ""))
     pr = alt.pruning_plan
     if not alt.pruning.removed:
@@ -564,7 +655,11 @@ def alternatives_section(alt: Alternatives, choice: PlanChoice, columns: list[st
         }
         if plan_id == "feature_subset":
             s = alt.subset
-            row["method"] = "McCabe (1984) principal variables: greedy forward selection, then exchanges"
+            row["method"] = ("McCabe (1984) principal variables: greedy forward selection, then exchanges"
+                             + ("; checked by scoring every subset of every size up to the one kept, so the size is the "
+                                "smallest that keeps the target share and the subset the best of its size"
+                                if s.exhaustive else "; a heuristic (every subset was too many to score)"))
+            row["exhaustive"] = s.exhaustive
             row["target_share"] = s.target
             row["exchanges"] = s.swaps
             if s.note:

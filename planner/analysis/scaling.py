@@ -86,12 +86,31 @@ def robust_spread(rows: np.ndarray) -> np.ndarray:
     P. J. Rousseeuw and C. Croux (1993), "Alternatives to the median absolute deviation",
     JASA 88(424), 1273-1283.
     """
+    return _robust_spread_and_source(rows)[0]
+
+
+def _robust_spread_and_source(rows: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+    """:func:`robust_spread`, and per column which spread it is: "mad", "iqr" (the MAD is
+    0, as for a feature that is mostly one value) or "sd" (the IQR is 0 too)."""
     med = np.median(rows, axis=0)
     mad = MAD_NORMAL * np.median(np.abs(rows - med), axis=0)
     q75, q25 = np.percentile(rows, [75, 25], axis=0)
     iqr = (q75 - q25) / 1.3489795003921634
     spread = np.where(mad > 0, mad, iqr)
-    return np.where(spread > 0, spread, np.std(rows, axis=0, ddof=1))
+    source = np.where(mad > 0, "mad", np.where(iqr > 0, "iqr", "sd"))
+    return np.where(spread > 0, spread, np.std(rows, axis=0, ddof=1)), source
+
+
+def robust_fallbacks(source: np.ndarray, columns: list[str]) -> list[str]:
+    """Reasons in words for the features that robust scaling could not scale by their MAD
+    (``source`` from :func:`_robust_spread_and_source`)."""
+    reasons = []
+    for kind, how in (("iqr", "their interquartile range / 1.349"), ("sd", "their standard deviation (the IQR is 0 too)")):
+        named = [c for c, s in zip(columns, source) if s == kind]
+        if named:
+            shown = ", ".join(named[:10]) + (f" and {len(named) - 10} more" if len(named) > 10 else "")
+            reasons.append(f"robust scale: the median absolute deviation is 0 for {shown}; they are scaled by {how}")
+    return reasons
 
 
 def scale_for(method: str, sd: np.ndarray, rows: np.ndarray | None) -> np.ndarray:
@@ -112,8 +131,13 @@ def scale_for(method: str, sd: np.ndarray, rows: np.ndarray | None) -> np.ndarra
 
 def make_scaling(method: str, moments: Moments, rows: np.ndarray | None, reasons: list[str], requested: str) -> Scaling:
     """Center and scale for ``method`` (``robust`` needs the rows)."""
-    scale = scale_for(method, moments.std(), rows)
-    return Scaling(method=method, center=moments.mean.copy(), scale=scale, reasons=list(reasons), requested=requested)
+    reasons = list(reasons)
+    if method == "robust" and rows is not None:
+        scale, source = _robust_spread_and_source(rows)
+        reasons += robust_fallbacks(source, list(moments.columns))
+    else:
+        scale = scale_for(method, moments.std(), rows)
+    return Scaling(method=method, center=moments.mean.copy(), scale=scale, reasons=reasons, requested=requested)
 
 
 @dataclass

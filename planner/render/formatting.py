@@ -51,11 +51,9 @@ def names(items, limit: int = 12) -> str:
     return shown + (f" and {len(items) - limit} more" if len(items) > limit else "")
 
 
-#: How each plan of the alternatives is named in prose (its id is what --plan takes).
-PLAN_NAMES = {"components": "components", "feature_subset": "feature subset", "vif_pruning": "VIF pruning"}
-
-
 def plan_name(plan_id: str) -> str:
+    from ..analysis.alternatives import PLAN_NAMES
+
     return PLAN_NAMES.get(plan_id, str(plan_id).replace("_", " "))
 
 
