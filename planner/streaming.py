@@ -6,9 +6,9 @@ figures (bootstrap, cross-validation, robust scale, target check), caches the pa
 feature values in a temporary binary file and, for a CSV, hashes the file's bytes as the
 parser reads them. Every matrix-level figure is then computed from the Moments exactly as
 in memory. Pass 2 reads the cache in chunks for the per-row figures (Mahalanobis screen,
-SPE, Hotelling's T-squared), which are exact over all rows. Peak memory is bounded by the
-chunk size, the read-ahead of the CSV parser, the sample and O(p^2), whatever the number of
-rows; the temporary folder is removed whether the audit succeeds or fails.
+SPE, Hotelling's T-squared), which are exact over all rows, on every core. Peak memory is
+bounded by the chunk size times the cores, the read-ahead of the CSV parser, the sample and
+O(p^2), whatever the number of rows; the temporary folder is removed whether the audit succeeds or fails.
 
 Screening decisions (which columns are numeric, identifiers, constant, all missing) are
 taken on the first rows, and the record says so.
@@ -603,6 +603,35 @@ def cached_chunks(cache_path: str, p: int, rows: int):
             yield start, np.fromfile(handle, dtype=np.float64, count=count * p).reshape(count, p)
 
 
+def over_cached_chunks(sp: "StreamPass", work):
+    """Yield (start, work(chunk)) for each cached chunk, in order, the chunks worked on by
+    as many threads as there are cores (BLAS held to one thread each, as in
+    :mod:`planner.parallel`) while the next ones are read. At most one chunk a thread, and
+    one more, are in flight at once (with their temporaries, about 30 MB a chunk at p = 50),
+    so memory stays bounded by the chunk size and the cores, whatever the number of rows."""
+    from collections import deque
+    from concurrent.futures import ThreadPoolExecutor
+
+    from .parallel import cores, one_blas_thread
+
+    threads = cores()
+    chunks = cached_chunks(sp.cache_path, sp.moments.p, sp.rows_used)
+    if threads <= 1:
+        for start, chunk in chunks:
+            yield start, work(chunk)
+        return
+    with one_blas_thread(), ThreadPoolExecutor(max_workers=threads) as pool:
+        pending: deque = deque()
+        for start, chunk in chunks:
+            pending.append((start, pool.submit(work, chunk)))
+            if len(pending) > threads:
+                first, future = pending.popleft()
+                yield first, future.result()
+        while pending:
+            first, future = pending.popleft()
+            yield first, future.result()
+
+
 def cached_rows(cache_path: str, p: int, indices) -> dict[int, np.ndarray]:
     """Some cached rows by index."""
     found = {}
@@ -618,8 +647,7 @@ def outlier_pass(sp: StreamPass, spec, limit: float):
     from .analysis.outliers import mahalanobis_d2
 
     top, beyond = TopRows(), 0
-    for start, chunk in cached_chunks(sp.cache_path, sp.moments.p, sp.rows_used):
-        d2 = mahalanobis_d2(chunk, sp.moments, spec)
+    for start, d2 in over_cached_chunks(sp, lambda chunk: mahalanobis_d2(chunk, sp.moments, spec)):
         beyond += int((d2 > limit).sum())
         top.update(d2, start)
     return beyond, top
@@ -643,15 +671,14 @@ def row_figure_pass(sp: StreamPass, transform, figures, limits: dict, chart_rows
     from .analysis.monitoring import beyond_limit
 
     result = RowFigurePass({key: 0 for key in limits}, TopRows(), TopRows(), [], [])
-    for start, chunk in cached_chunks(sp.cache_path, sp.moments.p, sp.rows_used):
-        fig = figures(transform(chunk))
+    for start, fig in over_cached_chunks(sp, lambda chunk: figures(transform(chunk))):
         for key, limit in limits.items():
             if limit is not None:
                 values = fig.spe if key.startswith("spe") else fig.t2
                 result.counts[key] += int(beyond_limit(values, limit).sum())
         result.top_spe.update(fig.spe, start)
         result.top_t2.update(fig.t2, start)
-        lo, hi = np.searchsorted(chart_rows, [start, start + len(chunk)])
+        lo, hi = np.searchsorted(chart_rows, [start, start + len(fig.spe)])
         picked = chart_rows[lo:hi] - start
         result.chart_spe.extend(fig.spe[picked].tolist())
         result.chart_t2.extend(fig.t2[picked].tolist())
