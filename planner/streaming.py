@@ -7,7 +7,7 @@ feature values in a temporary binary file and, for a CSV, hashes the file's byte
 parser reads them. Every matrix-level figure is then computed from the Moments exactly as
 in memory. Pass 2 reads the cache in chunks for the per-row figures (Mahalanobis screen,
 SPE, Hotelling's T-squared), which are exact over all rows, on every core. Peak memory is
-bounded by the chunk size times the cores, the read-ahead of the CSV parser, the sample and
+bounded by the chunk size (and a few chunks in flight), the read-ahead of the CSV parser, the sample and
 O(p^2), whatever the number of rows; the temporary folder is removed whether the audit succeeds or fails.
 
 Screening decisions (which columns are numeric, identifiers, constant, all missing) are
@@ -33,6 +33,9 @@ CHUNK_ROWS = 16_384
 #: the parser, so this bounds its read-ahead (32 MB); blocks of 1 MB also parse about twice
 #: as fast as blocks of 16 MB, which no longer fit the processor's caches.
 CSV_BLOCK_BYTES = 1 << 20
+#: Cached values the second pass holds in flight at once across its threads (see
+#: over_cached_chunks): three chunks at p = 50, one (no threads) above p = 80.
+PASS2_BYTES = 20 * 1024 * 1024
 #: Read buffer of each Parquet column chunk (see ParquetSource).
 PARQUET_BUFFER_BYTES = 1 << 16
 HEAD_ROWS = 20_000
@@ -606,30 +609,35 @@ def cached_chunks(cache_path: str, p: int, rows: int):
 def over_cached_chunks(sp: "StreamPass", work):
     """Yield (start, work(chunk)) for each cached chunk, in order, the chunks worked on by
     as many threads as there are cores (BLAS held to one thread each, as in
-    :mod:`planner.parallel`) while the next ones are read. At most one chunk a thread, and
-    one more, are in flight at once (with their temporaries, about 30 MB a chunk at p = 50),
-    so memory stays bounded by the chunk size and the cores, whatever the number of rows."""
+    :mod:`planner.parallel`) while the next ones are read. The chunks in flight hold at most
+    PASS2_BYTES of cached values (and their temporaries, a few times that), whatever the
+    number of rows and of cores; a chunk larger than that is worked on alone."""
     from collections import deque
     from concurrent.futures import ThreadPoolExecutor
 
     from .parallel import cores, one_blas_thread
 
-    threads = cores()
+    chunk_bytes = CHUNK_ROWS * sp.moments.p * 8
+    in_flight = max(1, min(cores() + 1, PASS2_BYTES // chunk_bytes))
+    threads = min(cores(), in_flight)
     chunks = cached_chunks(sp.cache_path, sp.moments.p, sp.rows_used)
-    if threads <= 1:
-        for start, chunk in chunks:
-            yield start, work(chunk)
-        return
-    with one_blas_thread(), ThreadPoolExecutor(max_workers=threads) as pool:
-        pending: deque = deque()
-        for start, chunk in chunks:
-            pending.append((start, pool.submit(work, chunk)))
-            if len(pending) > threads:
+    try:
+        if threads <= 1:
+            for start, chunk in chunks:
+                yield start, work(chunk)
+            return
+        with one_blas_thread(), ThreadPoolExecutor(max_workers=threads) as pool:
+            pending: deque = deque()
+            for start, chunk in chunks:
+                pending.append((start, pool.submit(work, chunk)))
+                if len(pending) >= in_flight:
+                    first, future = pending.popleft()
+                    yield first, future.result()
+            while pending:
                 first, future = pending.popleft()
                 yield first, future.result()
-        while pending:
-            first, future = pending.popleft()
-            yield first, future.result()
+    finally:
+        chunks.close()  # the cache file is closed now, even after an error in a worker
 
 
 def cached_rows(cache_path: str, p: int, indices) -> dict[int, np.ndarray]:

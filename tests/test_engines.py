@@ -246,3 +246,35 @@ def test_auto_streams_only_what_would_crowd_the_memory(tmp_path, monkeypatch):
     assert streaming.should_stream(path)
     monkeypatch.setattr(streaming, "AUTO_STREAM_BYTES", 10**9)
     assert not streaming.should_stream(path)
+
+
+def test_the_second_pass_keeps_the_order_and_closes_the_cache_after_a_worker_error(tmp_path, monkeypatch):
+    # Property (invented rows): the threaded pass yields what a plain loop over the chunks
+    # gives, in order; an error in a worker reaches the caller and leaves no open file.
+    import os
+    from types import SimpleNamespace
+
+    import planner.streaming as streaming
+
+    monkeypatch.setattr(streaming, "CHUNK_ROWS", 7)
+    rows = np.arange(100 * 3, dtype=float).reshape(100, 3)
+    cache = tmp_path / "rows.f64"
+    rows.tofile(cache)
+    sp = SimpleNamespace(cache_path=str(cache), moments=SimpleNamespace(p=3), rows_used=100)
+    got = list(streaming.over_cached_chunks(sp, lambda chunk: chunk.sum(axis=1)))
+    assert [start for start, _ in got] == list(range(0, 100, 7))
+    np.testing.assert_array_equal(np.concatenate([v for _, v in got]), rows.sum(axis=1))
+
+    def failing(chunk):
+        if chunk[0, 0] >= 42:
+            raise ValueError("worker failed")
+        return chunk
+
+    def open_cache() -> int:
+        fds = os.listdir("/proc/self/fd")
+        return sum(1 for fd in fds if os.path.realpath(f"/proc/self/fd/{fd}") == str(cache.resolve()))
+
+    with pytest.raises(ValueError, match="worker failed"):
+        for _ in streaming.over_cached_chunks(sp, failing):
+            pass
+    assert open_cache() == 0
