@@ -70,7 +70,7 @@ def _partition_pass(frame, features, target, id_column, seed, index):
 def _row_pass(frame, features, id_column, index, model, offset=0):
     """Per-partition counts and worst rows of SPE, T-squared and the Mahalanobis screen."""
     from .analysis.monitoring import beyond_limit, row_figures
-    from .analysis.outliers import mahalanobis_d2
+    from .analysis.rowpass import largest_first, mahalanobis_distances
 
     x = frame[features].to_numpy(dtype=np.float64)
     complete = ~np.isnan(x).any(axis=1)
@@ -78,11 +78,11 @@ def _row_pass(frame, features, id_column, index, model, offset=0):
     rows = offset + np.flatnonzero(complete) + 1
     labels = frame[id_column].astype(str).to_numpy()[complete] if id_column else np.array([f"row {r}" for r in rows])
     fig = row_figures(model["scaling"].transform(x), model["loadings"], model["eigenvalues"], model["k"])
-    d2 = mahalanobis_d2(x, model["moments"], model["spectrum"])
+    d2 = mahalanobis_distances(x, model["moments"], model["spectrum"])
     out = {"n": len(x)}
     for name, values, limits in (("spe", fig.spe, model["spe_limits"]), ("t2", fig.t2, model["t2_limits"]), ("d2", d2, model["d2_limits"])):
         out[name] = [int(beyond_limit(values, lim).sum()) for lim in limits]
-        top = np.argsort(-values, kind="stable")[:TOP_ROWS]
+        top = largest_first(values, TOP_ROWS)
         out[name + "_top"] = [(float(values[i]), str(labels[i]), x[i], int(rows[i])) for i in top]
     return out
 

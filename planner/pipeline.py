@@ -474,14 +474,7 @@ def plan_sections(alternatives, options: AuditOptions, rulebook: Rulebook, colum
             f"--plan {choice.chosen} goes against the recommended plan ({choice.recommended}) and needs --because TEXT",
             "say why, e.g. --because 'the model must use measured features'",
         )
-    section = alternatives_section(alternatives, choice, columns, target, size_ratio, vif_threshold)
-    decision = section["plan_choice"]
-    decision["overridden"] = options.plan is not None and choice.chosen != choice.recommended
-    if options.plan is None and choice.recommended != "components":
-        decision["reasons"].append(
-            f"the component plan was taken by default (no --plan); choose the recommended one with --plan {choice.recommended}"
-        )
-    return section
+    return alternatives_section(alternatives, choice, columns, target, size_ratio, vif_threshold)
 
 
 def screen_rows(result: intake_mod.IntakeResult, moments: Moments, diagnostics, thresholds: Thresholds, evidence, chosen: int):

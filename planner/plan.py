@@ -15,6 +15,17 @@ import pandas as pd
 from .errors import InputError
 
 
+def _provenance(record: dict) -> dict:
+    """Where a plan comes from: the record's identifier column, id and status."""
+    return {"id_column": record["input"].get("id_column"), "record_id": record.get("record_id"),
+            "status": record.get("status")}
+
+
+def _numbers(frame: pd.DataFrame, columns: list[str]) -> np.ndarray:
+    """The columns of a frame as floats, NaN where a cell is not a number."""
+    return frame[columns].apply(pd.to_numeric, errors="coerce").to_numpy(dtype=float)
+
+
 @dataclass
 class ReductionPlan:
     """z = (x - center) / scale; scores = z P_k; SPE = ||z - scores P_k^T||^2;
@@ -46,9 +57,7 @@ class ReductionPlan:
             eigenvalues=np.array(dec["eigenvalues"][:k], dtype=float),
             spe_limit=disc.get("spe_limit"),
             t2_limit=disc.get("t2_limit"),
-            id_column=record["input"].get("id_column"),
-            record_id=record.get("record_id"),
-            status=record.get("status"),
+            **_provenance(record),
         )
 
     @property
@@ -73,7 +82,7 @@ class ReductionPlan:
                     f"the data lacks {len(missing)} feature column(s) of the plan: {', '.join(missing[:10])}",
                     "give a table with the columns the record was made from",
                 )
-            values = frame[self.columns].apply(pd.to_numeric, errors="coerce").to_numpy(dtype=float)
+            values = _numbers(frame, self.columns)
         else:
             values = np.asarray(frame, dtype=float)
             if values.ndim != 2 or values.shape[1] != len(self.columns):
@@ -160,9 +169,7 @@ class FeaturePlan:
             scale=dict(dec["scale"]),
             coefficients=None if coefficients is None else np.array(coefficients, dtype=float).reshape(len(rec["kept"]), len(rec["rebuilt"])),
             spe_limit=rec.get("spe_limit"),
-            id_column=record["input"].get("id_column"),
-            record_id=record.get("record_id"),
-            status=record.get("status"),
+            **_provenance(record),
         )
 
     @property
@@ -198,10 +205,14 @@ class FeaturePlan:
                 f"the data lacks {len(missing)} kept column(s) of the plan: {', '.join(missing[:10])}",
                 "give a table with the columns the plan keeps",
             )
-        kept = frame[self.kept].apply(pd.to_numeric, errors="coerce").to_numpy(dtype=float)
+        kept = _numbers(frame, self.kept)
         if self.coefficients is None or any(c not in frame.columns for c in self.rebuilt):
             return kept, None
-        return kept, frame[self.rebuilt].apply(pd.to_numeric, errors="coerce").to_numpy(dtype=float)
+        return kept, _numbers(frame, self.rebuilt)
+
+    def _scaled(self, values: np.ndarray, columns: list[str]) -> np.ndarray:
+        """(x - center) / scale of some columns, in the record's scaled units."""
+        return (values - [self.center[c] for c in columns]) / [self.scale[c] for c in columns]
 
     def transform(self, frame) -> np.ndarray:
         """The kept columns of the rows, in their own units."""
@@ -216,8 +227,7 @@ class FeaturePlan:
             out["spe"] = np.nan
             out["beyond_limit"] = pd.Series([pd.NA] * len(out), dtype="Int64")
             return out
-        z_kept = (kept - [self.center[c] for c in self.kept]) / [self.scale[c] for c in self.kept]
-        z_rebuilt = (rebuilt - [self.center[c] for c in self.rebuilt]) / [self.scale[c] for c in self.rebuilt]
+        z_kept, z_rebuilt = self._scaled(kept, self.kept), self._scaled(rebuilt, self.rebuilt)
         residual = z_rebuilt - z_kept @ self.coefficients  # the kept columns rebuild themselves exactly
         spe = np.sum(residual**2, axis=1)
         out["spe"] = spe

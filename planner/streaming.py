@@ -652,10 +652,10 @@ def cached_rows(cache_path: str, p: int, indices) -> dict[int, np.ndarray]:
 
 def outlier_pass(sp: StreamPass, spec, limit: float):
     """Pass 2a: the number of rows beyond ``limit`` and the largest squared distances."""
-    from .analysis.outliers import mahalanobis_d2
+    from .analysis.rowpass import mahalanobis_distances
 
     top, beyond = TopRows(), 0
-    for start, d2 in over_cached_chunks(sp, lambda chunk: mahalanobis_d2(chunk, sp.moments, spec)):
+    for start, d2 in over_cached_chunks(sp, lambda chunk: mahalanobis_distances(chunk, sp.moments, spec)):
         beyond += int((d2 > limit).sum())
         top.update(d2, start)
     return beyond, top

@@ -120,7 +120,7 @@ def test_vif_pruning_follows_statsmodels_step_by_step():
     final = [variance_inflation_factor(design, i + 1) for i in range(len(left))]
     assert max(final) < 10.0
     assert pruned.max_vif == pytest.approx(max(final), rel=1e-7)
-    assert len(pruned.removed) >= 2  # longley is famously collinear
+    assert len(pruned.removed) >= 2  # longley is strongly collinear (Longley 1967, JASA 62(319), 819-841; from memory)
 
 
 def _with_copies(seed: int = 4) -> pd.DataFrame:

@@ -21,6 +21,7 @@ from dataclasses import dataclass, field
 
 import numpy as np
 
+from .collinearity import rank_tolerance
 from .monitoring import spe_limit
 
 #: A feature whose residual variance, after the selected ones, is below this share of its
@@ -58,7 +59,7 @@ def subset_share(c: np.ndarray, subset: list[int]) -> float:
 def _explained_part(c: np.ndarray, subset: list[int]) -> np.ndarray:
     """A with A A^T = C[:, S] C[S, S]^+ C[S, :] (the inverse on the non-null eigenvectors)."""
     values, vectors = np.linalg.eigh(c[np.ix_(subset, subset)])
-    keep = values > values[-1] * len(subset) * np.finfo(float).eps * 100
+    keep = values > rank_tolerance(values[-1], len(subset))
     return (c[:, subset] @ vectors[:, keep]) / np.sqrt(values[keep])
 
 
@@ -339,7 +340,7 @@ def inflation_factors(r: np.ndarray, subset: list[int]) -> np.ndarray:
     weighs on it)."""
     sub = r[np.ix_(subset, subset)]
     values, vectors = np.linalg.eigh(sub)
-    tol = max(values[-1], 0.0) * len(subset) * np.finfo(float).eps * 100
+    tol = rank_tolerance(values[-1], len(subset))
     null = values <= tol
     vif = (vectors[:, ~null] ** 2) @ (1.0 / values[~null])
     if null.any():
@@ -471,7 +472,6 @@ def reconstruction(c: np.ndarray, subset: list[int]) -> tuple[np.ndarray, np.nda
 
 
 # ---------------------------------------------------------------------- the plans compared
-PLAN_KINDS = ("components", "feature_subset", "vif_pruning")
 #: How each plan is named in prose (its id is what --plan takes).
 PLAN_NAMES = {"components": "components", "feature_subset": "feature subset", "vif_pruning": "VIF pruning"}
 #: Above this many features the subset search is not run (its matrices are p x p and its
@@ -518,9 +518,9 @@ class Alternatives:
     largest_eigenvalue: float = 0.0  # of C: the scale of rounding in its eigenvalues
 
 
-def _feature_plan(plan_id: str, c: np.ndarray, r: np.ndarray, kept: list[int]) -> FeaturePlan:
+def _feature_plan(plan_id: str, c: np.ndarray, kept: list[int], share: float, max_vif: float) -> FeaturePlan:
     b, residual_eigen = reconstruction(c, kept)
-    return FeaturePlan(plan_id, list(kept), subset_share(c, kept), float(np.max(inflation_factors(r, kept))), b, residual_eigen)
+    return FeaturePlan(plan_id, list(kept), share, max_vif, b, residual_eigen)
 
 
 def plan_alternatives(c: np.ndarray | None, r: np.ndarray | None, loadings: np.ndarray, explained_ratio: np.ndarray, k: int,
@@ -539,8 +539,9 @@ def plan_alternatives(c: np.ndarray | None, r: np.ndarray | None, loadings: np.n
     pruning = vif_pruning(r, vif_threshold)
     b4, b2 = jolliffe_b4(loadings, k), jolliffe_b2(loadings, k)
     return Alternatives(
-        k, share, search, _feature_plan("feature_subset", c, r, search.subset), pruning,
-        _feature_plan("vif_pruning", c, r, pruning.kept),
+        k, share, search,
+        _feature_plan("feature_subset", c, search.subset, search.share, float(np.max(inflation_factors(r, search.subset)))),
+        pruning, _feature_plan("vif_pruning", c, pruning.kept, subset_share(c, pruning.kept), pruning.max_vif),
         b4=b4, b2=b2, b4_share=subset_share(c, b4), b2_share=subset_share(c, b2),
         largest_eigenvalue=float(explained_ratio[0] * np.trace(c)),
     )
@@ -552,6 +553,7 @@ class PlanChoice:
     chosen: str
     reasons: list[str]
     because: str | None
+    overridden: bool = False  # a plan asked for (--plan) against the recommendation
 
 
 def recommend_plan(alt: Alternatives, size_ratio: float, vif_threshold: float) -> tuple[str, list[str]]:
@@ -583,7 +585,9 @@ def choose_plan(alt: Alternatives, requested: str | None, because: str | None, s
     against the recommendation needs a reason (the caller checks ``because``)."""
     recommended, reasons = recommend_plan(alt, size_ratio, vif_threshold)
     chosen = requested or "components"
-    return PlanChoice(recommended, chosen, reasons, because)
+    if requested is None and recommended != "components":
+        reasons.append(f"the component plan was taken by default (no --plan); choose the recommended one with --plan {recommended}")
+    return PlanChoice(recommended, chosen, reasons, because, overridden=requested is not None and chosen != recommended)
 
 
 #: A plan's reconstruction coefficients are kept in the record up to this many numbers.
@@ -637,8 +641,8 @@ def _set_aside(plan_id: str, alt: Alternatives, choice: PlanChoice) -> str:
             f"(components: {k} for {alt.component_share:.1%})")
 
 
-def alternatives_section(alt: Alternatives, choice: PlanChoice, columns: list[str], target: dict | None = None,
-                         size_ratio: float = 1.5, vif_threshold: float = 10.0) -> dict:
+def alternatives_section(alt: Alternatives, choice: PlanChoice, columns: list[str], target: dict | None,
+                         size_ratio: float, vif_threshold: float) -> dict:
     """The ``alternatives`` list and the ``plan_choice`` of the record (keys of DESIGN.md)."""
     fits = (target or {}).get("plan_fits") or {}
     metric = (target or {}).get("metric")
@@ -656,8 +660,7 @@ def alternatives_section(alt: Alternatives, choice: PlanChoice, columns: list[st
             rows.append({"plan_id": plan_id, "kind": plan_id, "kept": [], "size": None, "inputs_needed": None,
                          "variance_retained": None, "max_vif": None, "reason": alt.reason})
             continue
-        negligible = alt.largest_eigenvalue * len(columns) * np.finfo(float).eps * 100  # an exact zero, rounded
-        limit = spe_limit(plan.residual_eigenvalues, 0.95, negligible)
+        limit = spe_limit(plan.residual_eigenvalues, 0.95, rank_tolerance(alt.largest_eigenvalue, len(columns)))
         row = {
             "plan_id": plan_id, "kind": plan_id, "kept": _names(plan.kept, columns), "size": len(plan.kept),
             "inputs_needed": len(plan.kept), "variance_retained": plan.share, "max_vif": plan.max_vif,
@@ -703,7 +706,7 @@ def alternatives_section(alt: Alternatives, choice: PlanChoice, columns: list[st
         "chosen": choice.chosen,
         "reasons": list(choice.reasons),
         "because": choice.because,
-        "overridden": False,  # set by the caller, which knows whether --plan was given
+        "overridden": choice.overridden,
         "policy": POLICY.format(ratio=size_ratio, vif=vif_threshold),
         "size_ratio": (len(alt.subset_plan.kept) / alt.k) if alt.subset_plan else None,
     }

@@ -19,6 +19,12 @@ from ..moments import Moments
 RANK_TOLERANCE_FACTOR = 100.0
 
 
+def rank_tolerance(largest: float, p: int) -> float:
+    """The eigenvalue at or below which a p x p symmetric matrix whose largest eigenvalue
+    is ``largest`` counts as singular in that direction (an exact zero, rounded)."""
+    return max(float(largest), 0.0) * p * np.finfo(float).eps * RANK_TOLERANCE_FACTOR
+
+
 @dataclass
 class Spectrum:
     """Symmetric eigendecomposition of a correlation matrix, eigenvalues descending."""
@@ -42,7 +48,7 @@ def spectrum(r: np.ndarray) -> Spectrum:
     order = np.argsort(values)[::-1]
     values, vectors = values[order], vectors[:, order]
     p = r.shape[0]
-    tol = max(values[0], 0.0) * p * np.finfo(float).eps * RANK_TOLERANCE_FACTOR
+    tol = rank_tolerance(values[0], p)
     return Spectrum(values=values, vectors=vectors, tolerance=tol)
 
 
@@ -257,7 +263,7 @@ def condition_indices(moments: Moments, threshold: float = 30.0, proportion: flo
     values, vectors = np.linalg.eigh(scaled)
     order = np.argsort(values)[::-1]
     values, vectors = values[order], vectors[:, order]
-    tol = values[0] * (p + 1) * np.finfo(float).eps * RANK_TOLERANCE_FACTOR
+    tol = rank_tolerance(values[0], p + 1)
     keep = values > tol
     d = np.sqrt(np.where(keep, values, np.nan))
     indices = [float(d[0] / dk) if np.isfinite(dk) else None for dk in d]

@@ -66,11 +66,21 @@ def scaler_of_rows(method: str):
     return fit
 
 
+def sample_picks(n: int, rng: np.random.Generator) -> tuple[np.ndarray | None, str | None]:
+    """The sorted indices of a seeded sample of RESAMPLE_MAX_ROWS of ``n`` rows, and the
+    note that says so; (None, None) when there are no more rows than that."""
+    if n <= RESAMPLE_MAX_ROWS:
+        return None, None
+    pick = np.sort(rng.choice(n, RESAMPLE_MAX_ROWS, replace=False))
+    return pick, f"on a seeded sample of {RESAMPLE_MAX_ROWS:,} of the {n:,} rows"
+
+
 def row_sample(rows: np.ndarray | None, rng: np.random.Generator) -> tuple[np.ndarray | None, str | None]:
-    if rows is None or rows.shape[0] <= RESAMPLE_MAX_ROWS:
-        return rows, None
-    pick = np.sort(rng.choice(rows.shape[0], RESAMPLE_MAX_ROWS, replace=False))
-    return rows[pick], f"on a seeded sample of {RESAMPLE_MAX_ROWS:,} of the {rows.shape[0]:,} rows"
+    """The rows of :func:`sample_picks` (all of them when there are few enough)."""
+    if rows is None:
+        return None, None
+    pick, note = sample_picks(rows.shape[0], rng)
+    return (rows, None) if pick is None else (rows[pick], note)
 
 
 # ---------------------------------------------------------------------- all rules

@@ -5,6 +5,7 @@ from dataclasses import dataclass
 
 import numpy as np
 
+from .collinearity import rank_tolerance
 from .decomposition import Decomposition, Intervals
 
 
@@ -86,7 +87,7 @@ def discarded_section(
     folds as the components (``target.plan_fits``). ``model_figures`` (SPE and T-squared of
     every row, :class:`planner.analysis.rowpass.ModelRowFigures`) saves the pass over the
     rows when the caller has made it already."""
-    from .components import BOOTSTRAP_MAX_WORK, RESAMPLE_MAX_ROWS, matrix_of_rows, scaler_of_rows
+    from .components import BOOTSTRAP_MAX_WORK, matrix_of_rows, sample_picks, scaler_of_rows
     from .monitoring import beyond_limit, contributions, row_figures, spe_limit, t2_limit
     from .rowpass import largest_first, model_row_figures
     from .stability import loading_stability
@@ -98,7 +99,7 @@ def discarded_section(
     feature_var = moments.std() ** 2 / sc.scale**2  # variance of each scaled feature
     per = feature_retention(d, k, feature_var, sc.scale, columns, floor)
     residual_eigen = d.eigenvalues[k:]
-    negligible = float(d.eigenvalues[0]) * len(columns) * np.finfo(float).eps * 100  # an exact zero, rounded
+    negligible = rank_tolerance(d.eigenvalues[0], len(columns))
     limits = {level: spe_limit(residual_eigen, level, negligible) for level in (0.95, 0.99)}
     section = {
         "kept_components": k,
@@ -169,11 +170,10 @@ def discarded_section(
             v = vt.T
             return lambda new: transform(new) @ v
 
-        check_rows, check_target, sample_note = rows, target, None
-        if len(rows) > RESAMPLE_MAX_ROWS:  # the refits of every fold on a seeded sample of rows
-            pick = np.sort(np.random.default_rng([seed, 33]).choice(len(rows), RESAMPLE_MAX_ROWS, replace=False))
+        check_rows, check_target = rows, target
+        pick, sample_note = sample_picks(len(rows), np.random.default_rng([seed, 33]))  # the refits of every fold
+        if pick is not None:
             check_rows, check_target = rows[pick], target[pick]
-            sample_note = f"on a seeded sample of {RESAMPLE_MAX_ROWS:,} of the {len(rows):,} rows"
         check = target_check(check_rows, check_target, k, fit_scores, sc.transform(check_rows) @ d.loadings, target_name, seed,
                              signal_share=signal_share, feature_plans=feature_plans)
         t = {

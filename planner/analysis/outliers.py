@@ -32,11 +32,6 @@ class OutlierScreen:
     reason: str | None
 
 
-def mahalanobis_d2(rows: np.ndarray, moments: Moments, spec: Spectrum) -> np.ndarray:
-    """Squared Mahalanobis distances z^T R^+ z of rows, z standardized by the Moments."""
-    return mahalanobis_distances(rows, moments, spec)
-
-
 def mahalanobis_screen(
     rows: np.ndarray,
     moments: Moments,
@@ -62,9 +57,8 @@ def mahalanobis_screen(
     leverage points", JASA 85(411), 633-639 (the 97.5% chi-squared cut-off).
     """
     n, p = moments.n, moments.p
-    if p >= n:
-        return screen_of_distances(None, n, p, spec, labels, row_numbers, quantile, worst)
-    return screen_of_distances(mahalanobis_d2(rows, moments, spec), n, p, spec, labels, row_numbers, quantile, worst)
+    d2 = None if p >= n else mahalanobis_distances(rows, moments, spec)
+    return screen_of_distances(d2, n, p, spec, labels, row_numbers, quantile, worst)
 
 
 def screen_of_distances(

@@ -12,6 +12,7 @@ from dataclasses import dataclass, field
 import numpy as np
 import scipy.special
 
+from .collinearity import rank_tolerance
 from .random_matrix import marchenko_pastur_median, marchenko_pastur_null
 
 #: Minka's evidence is evaluated at every rank up to this many features, else up to MINKA_MAX_RANK.
@@ -429,7 +430,7 @@ def minka(eigenvalues: np.ndarray, n: int, p: int) -> RuleResult:
     spectrum = np.asarray(eigenvalues, float)
     # Exact dependencies give eigenvalues that are zero up to rounding; the model is then
     # fitted in the space the data span (the numerical rank), as the zeros carry no noise.
-    tol = spectrum[0] * p * np.finfo(float).eps * 100
+    tol = rank_tolerance(spectrum[0], p)
     rank_data = int(np.sum(spectrum > tol))
     spectrum = spectrum[:rank_data]
     ll = np.full(p, -np.inf)

@@ -14,7 +14,7 @@ from dataclasses import dataclass
 import numpy as np
 
 from ..moments import BLOCK_ROWS, Moments
-from .collinearity import Spectrum
+from .collinearity import Spectrum, rank_tolerance
 
 
 def each_block(n: int, step, block_rows: int = BLOCK_ROWS) -> None:
@@ -126,7 +126,7 @@ def one_pass_row_figures(
     """
     p = loadings.shape[0]
     lam = np.asarray(eigenvalues, float)
-    non_null = lam > max(float(lam[0]), 0.0) * p * np.finfo(float).eps * 100.0
+    non_null = lam > rank_tolerance(lam[0], p)
     with np.errstate(divide="ignore"):
         inverse = np.where(non_null, 1.0 / np.where(non_null, lam, 1.0), 0.0)
     # One product of the squared scores with three weight columns gives the three sums.

@@ -97,6 +97,19 @@ def _peak_rss_mb(pid_cmd: list[str], env: dict | None = None) -> tuple[float, fl
     return float(seconds), int(peak_kb) / 1024
 
 
+def _alternating(commands: dict[str, tuple[list[str], dict]], rounds: int) -> dict[str, list[tuple[float, float]]]:
+    """(seconds, peak MB) of each command, run ``rounds`` times in alternation, the order
+    rotating from round to round, so that neither a drift of the machine's speed nor a place
+    right after another large process favours one."""
+    runs: dict[str, list] = {name: [] for name in commands}
+    names = list(commands)
+    for round_ in range(rounds):
+        shift = round_ % len(names)
+        for name in names[shift:] + names[:shift]:
+            runs[name].append(_peak_rss_mb(*commands[name]))
+    return runs
+
+
 def _factor_table(n: int, p: int, seed: int = 0) -> np.ndarray:
     rng = np.random.default_rng(seed)
     k = max(2, p // 10)
@@ -135,9 +148,7 @@ def section_memory() -> list[tuple[str, str, str]]:
     # The audit walks its row passes on both cores (planner.parallel), so the floor is timed
     # with everything on one thread and with pyarrow and BLAS free to use both cores, and
     # the ratio is taken against the faster floor. The audit runs as a user runs it, with
-    # no thread limits in its environment. The runs alternate, and the order rotates from
-    # round to round, so that neither a drift of the machine's speed nor a place right
-    # after another large process favours one.
+    # no thread limits in its environment.
     free = _free_env()
     one = dict(free, OMP_NUM_THREADS="1", OPENBLAS_NUM_THREADS="1")
     commands = {
@@ -145,11 +156,7 @@ def section_memory() -> list[tuple[str, str, str]]:
         "floor_free": ([sys.executable, "-c", floor_code, str(data)], free),
         "audit": (_audit_cmd(data, folder / "out", "--engine", "memory"), free),
     }
-    runs: dict[str, list] = {name: [] for name in commands}
-    names = list(commands)
-    for round_ in range(3):
-        for name in names[round_:] + names[:round_]:
-            runs[name].append(_peak_rss_mb(*commands[name]))
+    runs = _alternating(commands, 3)
     (f1_s, f1_mb), (ff_s, _), (audit_s, audit_mb) = min(runs["floor_1"]), min(runs["floor_free"]), min(runs["audit"])
     floor_s = min(f1_s, ff_s)
     return [
@@ -174,16 +181,12 @@ def section_stream() -> list[tuple[str, str, str]]:
     # pyarrow's streamed read with its own defaults (blocks of 1 MB), its fastest here: blocks
     # of 16 MB took about 2.4 times as long on this machine and would flatter the audit. Both
     # are fresh processes, timed as a user runs them, with no thread limits (a limit of one
-    # thread would slow pyarrow's read but not the audit's own threads), in two rounds of
-    # alternating order, best of each.
+    # thread would slow pyarrow's read but not the audit's own threads), best of two rounds.
     raw_code = "import sys, pyarrow.csv as c\nfor _ in c.open_csv(sys.argv[1]): pass\n"
     free = _free_env()
-    commands = {"raw": [sys.executable, "-c", raw_code, str(data)],
-                "audit": _audit_cmd(data, folder / "out", "--engine", "stream")}
-    runs: dict[str, list] = {name: [] for name in commands}
-    for order in (("raw", "audit"), ("audit", "raw")):
-        for name in order:
-            runs[name].append(_peak_rss_mb(commands[name], free))
+    commands = {"raw": ([sys.executable, "-c", raw_code, str(data)], free),
+                "audit": (_audit_cmd(data, folder / "out", "--engine", "stream"), free)}
+    runs = _alternating(commands, 2)
     raw_s = min(runs["raw"])[0]
     audit_s = min(runs["audit"])[0]
     peak = max(mb for _, mb in runs["audit"])
