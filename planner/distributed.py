@@ -69,16 +69,17 @@ def _partition_pass(frame, features, target, id_column, seed, index):
 
 def _row_pass(frame, features, id_column, index, model, offset=0):
     """Per-partition counts and worst rows of SPE, T-squared and the Mahalanobis screen."""
-    from .analysis.monitoring import beyond_limit, row_figures
-    from .analysis.rowpass import largest_first, mahalanobis_distances
+    from .analysis.monitoring import beyond_limit
+    from .analysis.rowpass import largest_first, model_and_screen_figures
 
     x = frame[features].to_numpy(dtype=np.float64)
     complete = ~np.isnan(x).any(axis=1)
     x = x[complete]
     rows = offset + np.flatnonzero(complete) + 1
     labels = frame[id_column].astype(str).to_numpy()[complete] if id_column else np.array([f"row {r}" for r in rows])
-    fig = row_figures(model["scaling"].transform(x), model["loadings"], model["eigenvalues"], model["k"])
-    d2 = mahalanobis_distances(x, model["moments"], model["spectrum"])
+    sc = model["scaling"]
+    fig, d2 = model_and_screen_figures(x, model["moments"], model["spectrum"], sc.center, sc.scale, model["loadings"],
+                                       model["eigenvalues"], model["k"])
     out = {"n": len(x)}
     for name, values, limits in (("spe", fig.spe, model["spe_limits"]), ("t2", fig.t2, model["t2_limits"]), ("d2", d2, model["d2_limits"])):
         out[name] = [int(beyond_limit(values, lim).sum()) for lim in limits]

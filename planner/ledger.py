@@ -130,9 +130,9 @@ def apply_file(record_path: str | Path, data_path: str | Path, out: str | Path, 
     write_bytes_atomic(out, buffer.getvalue().encode("utf-8"))
     extra = [c for c in header if c not in plan.columns and c != plan.id_column]
     # A plan on original features needs only its kept columns; without the others, no SPE.
-    spe_not_computed = any(c not in header for c in plan.columns) or getattr(plan, "coefficients", True) is None
+    spe_not_computed = not plan.spe_computable(header)
     incomplete = 0 if spe_not_computed else int(scored["spe"].isna().sum())
-    return {"rows": len(scored), "components": plan.k, "plan": getattr(plan, "plan_id", "components"),
+    return {"rows": len(scored), "components": plan.k, "plan": plan.plan_id,
             "spe_not_computed": spe_not_computed,
             "kept": list(plan.get_feature_names_out()), "extra_columns": extra, "incomplete_rows": incomplete,
             "beyond_limit": int(scored["beyond_limit"].fillna(0).sum()), "out": str(out)}

@@ -483,17 +483,11 @@ def screen_rows(result: intake_mod.IntakeResult, moments: Moments, diagnostics, 
     diagnostics section with the screen."""
     from .analysis.diagnostics import diagnostics_section
     from .analysis.outliers import screen_of_distances
-    from .analysis.rowpass import mahalanobis_distances, model_row_figures, one_pass_row_figures
+    from .analysis.rowpass import model_and_screen_figures
 
     d, sc = evidence.decomposition, evidence.scaling
     spec = diagnostics.spectrum
-    if d.loadings.shape[1] == moments.p:
-        both = one_pass_row_figures(result.data, sc.center, sc.scale, d.loadings, d.eigenvalues, chosen, spec.rank)
-        figures, d2 = both.model, both.mahalanobis_d2
-    else:
-        figures, d2 = model_row_figures(result.data, sc.center, sc.scale, d.loadings, d.eigenvalues, chosen), None
-    if d2 is None:
-        d2 = mahalanobis_distances(result.data, moments, spec)
+    figures, d2 = model_and_screen_figures(result.data, moments, spec, sc.center, sc.scale, d.loadings, d.eigenvalues, chosen)
     diagnostics.outliers = screen_of_distances(
         d2, moments.n, moments.p, spec, result.row_labels, result.row_numbers, quantile=thresholds.outlier_quantile,
     )

@@ -60,12 +60,18 @@ class ReductionPlan:
             **_provenance(record),
         )
 
+    plan_id = "components"
+
     @property
     def k(self) -> int:
         return self.loadings.shape[1]
 
     def required_columns(self) -> list[str]:
         return list(self.columns)
+
+    def spe_computable(self, columns) -> bool:
+        """Whether rows with these columns get an SPE: when every feature is among them."""
+        return all(c in columns for c in self.columns)
 
     def get_feature_names_out(self, input_features=None) -> np.ndarray:
         return np.array([f"PC{j + 1}" for j in range(self.k)], dtype=object)
@@ -183,6 +189,11 @@ class FeaturePlan:
     def required_columns(self) -> list[str]:
         return list(self.kept)
 
+    def spe_computable(self, columns) -> bool:
+        """Whether rows with these columns get an SPE: when the record holds the
+        coefficients and the left-out features are among them too."""
+        return self.coefficients is not None and all(c in columns for c in self.rebuilt)
+
     def get_feature_names_out(self, input_features=None) -> np.ndarray:
         return np.array(self.kept, dtype=object)
 
@@ -206,7 +217,7 @@ class FeaturePlan:
                 "give a table with the columns the plan keeps",
             )
         kept = _numbers(frame, self.kept)
-        if self.coefficients is None or any(c not in frame.columns for c in self.rebuilt):
+        if not self.spe_computable(frame.columns):
             return kept, None
         return kept, _numbers(frame, self.rebuilt)
 

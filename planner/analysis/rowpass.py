@@ -146,3 +146,21 @@ def one_pass_row_figures(
     each_block(n, step, block_rows)
     d2 = sums[:, 2] if int(non_null.sum()) == rank else None
     return AllRowFigures(d2, ModelRowFigures(spe=sums[:, 1], t2=sums[:, 0]))
+
+
+def model_and_screen_figures(
+    rows: np.ndarray, moments: Moments, spec: Spectrum, center: np.ndarray, scale: np.ndarray, loadings: np.ndarray,
+    eigenvalues: np.ndarray, k: int,
+) -> tuple[ModelRowFigures, np.ndarray]:
+    """SPE and T-squared of the model, and the squared Mahalanobis distances of the outlier
+    screen, of every row: in one pass (:func:`one_pass_row_figures`) when the model holds
+    all p loadings and its non-null directions match the rank of R, else the model's
+    figures and the distances each in a pass of their own."""
+    if loadings.shape[1] == moments.p:
+        both = one_pass_row_figures(rows, center, scale, loadings, eigenvalues, k, spec.rank)
+        figures, d2 = both.model, both.mahalanobis_d2
+    else:
+        figures, d2 = model_row_figures(rows, center, scale, loadings, eigenvalues, k), None
+    if d2 is None:
+        d2 = mahalanobis_distances(rows, moments, spec)
+    return figures, d2
